@@ -1,0 +1,223 @@
+"""Standard errors, tests, intervals, VIFs and fit statistics from a solved ``Core``."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction
+from .solve import Basis, Core, choose_basis, monomials
+from .terms import ModelSpec, term_label
+
+
+def _special():
+    # scipy.special costs ~0.3 s to import; only fits that report p-values pay it
+    import scipy.special as sp
+
+    return sp
+
+
+def t_quantile(df: float, level: float) -> float:
+    """Two-sided critical value of Student's t for a ``level`` interval."""
+    return float(_special().stdtrit(df, 0.5 + level / 2)) if df > 0 else math.nan
+
+
+def t_pvalue(t: np.ndarray, df: float) -> np.ndarray:
+    """Two-sided p-value of t ratios."""
+    t = np.asarray(t, dtype=float)
+    if df <= 0:
+        return np.full(t.shape, np.nan)
+    return 2.0 * _special().stdtr(df, -np.abs(t))
+
+
+def f_pvalue(f: float, df1: float, df2: float) -> float:
+    """Upper tail of the F distribution."""
+    if not df1 > 0 or not df2 > 0 or math.isnan(f):
+        return math.nan
+    if math.isinf(f):
+        return 0.0
+    return float(_special().fdtrc(df1, df2, f))
+
+
+def weighted_ss(col: np.ndarray, w: np.ndarray | None, center: bool) -> float:
+    """Sum of squares of a column, about its weighted mean when ``center``."""
+    d = col - np.average(col, weights=w) if center else col
+    return float(np.sum(d * d) if w is None else np.sum(w * d * d))
+
+
+def vifs(inv_diag: np.ndarray, columns, w: np.ndarray | None, intercept: bool) -> np.ndarray:
+    """VIF_j = [(X'WX)^-1]_jj * SS_j: equals 1 / (1 - R^2_j) of x_j on the other columns
+    (R^2 centered when the model has an intercept, uncentered otherwise)."""
+    return np.array([d * weighted_ss(c, w, intercept) for d, c in zip(inv_diag, columns)])
+
+
+def _centered_vifs(x: np.ndarray, w, spec: ModelSpec, basis: Basis, inv_scaled) -> np.ndarray:
+    """VIFs of the same terms with every predictor centered at its mean before powers."""
+    t = basis.design(x)
+    if not all(spec.centrable()):
+        # the model's own basis could not be centered: build the centered model separately
+        centers = np.average(x, axis=0, weights=w)
+        scales = choose_basis(x, w, spec).scales
+        t = monomials((x - centers) / scales, basis.powers)
+        a = t if w is None else t * np.sqrt(w)[:, None]
+        norms = np.linalg.norm(a, axis=0)
+        _, r = np.linalg.qr(a / norms)
+        rinv = np.linalg.inv(r)
+        inv_scaled = (rinv @ rinv.T) / np.outer(norms, norms)
+    return vifs(np.diag(inv_scaled), t.T, w, spec.intercept)
+
+
+def raw_columns(x: np.ndarray, powers):
+    """Raw-unit design columns, one at a time (bounded memory on large data)."""
+    for q in powers:
+        col = np.ones(x.shape[0])
+        for j, e in enumerate(q):
+            if e:
+                col = col * x[:, j] ** e
+        yield col
+
+
+def build(
+    spec: ModelSpec,
+    core: Core,
+    basis: Basis,
+    x: np.ndarray,
+    y: np.ndarray,
+    w: np.ndarray | None,
+    level: float,
+    used: np.ndarray,
+    n_dropped: int,
+    response: str,
+    extra_notes: tuple[str, ...] = (),
+) -> FitResult:
+    n = len(y)
+    p = spec.n_params
+    df = n - p
+    sse = core.sse
+    s2 = sse / df if df > 0 else math.nan
+    rmse = math.sqrt(s2) if df > 0 else math.nan
+    se = np.sqrt(np.clip(np.diag(core.inv_raw), 0, None) * s2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tr = core.beta / se
+    tr = np.where((se == 0) & (core.beta == 0), np.nan, tr)
+    pv = t_pvalue(tr, df)
+    q = t_quantile(df, level)
+    lo, hi = core.beta - q * se, core.beta + q * se
+
+    icol = 0 if spec.intercept else None
+    vif_raw = vifs(np.diag(core.inv_raw), raw_columns(x, basis.powers), w, spec.intercept)
+    vif_c = _centered_vifs(x, w, spec, basis, core.inv_scaled)
+    if icol is not None:
+        vif_raw[icol] = vif_c[icol] = math.nan
+
+    coefs = tuple(
+        Coefficient(spec.terms[i], float(core.beta[i]), float(se[i]), float(tr[i]),
+                    float(pv[i]), float(lo[i]), float(hi[i]), float(vif_raw[i]),
+                    float(vif_c[i]))
+        for i in range(p)
+    )
+
+    sst = core.sst
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r2 = 1.0 - sse / sst if sst > 0 else math.nan
+        k0 = 1 if spec.intercept else 0
+        adj = 1.0 - (1.0 - r2) * (n - k0) / df if df > 0 else math.nan
+        df_model = p - k0
+        if df_model > 0 and df > 0:
+            f = ((sst - sse) / df_model) / s2 if s2 > 0 else math.inf
+        else:
+            f = math.nan
+        fp = f_pvalue(f, df_model, df)
+        ybar = float(np.mean(y))
+        cv = 100.0 * rmse / ybar if ybar != 0 else math.nan
+        llf = -0.5 * n * (math.log(2 * math.pi) + math.log(sse / n) + 1) if sse > 0 else math.inf
+        if w is not None and math.isfinite(llf):
+            llf += 0.5 * float(np.sum(np.log(w)))
+        aic = -2 * llf + 2 * p
+        bic = -2 * llf + math.log(n) * p
+        h = core.leverage
+        ew = core.residuals if w is None else core.residuals * np.sqrt(w)
+        press = float(np.sum((ew / (1.0 - h)) ** 2)) if np.all(h < 1) else math.inf
+        pred_r2 = 1.0 - press / sst if sst > 0 else math.nan
+    top = _top_term_p(spec, core, s2, df)
+    nonint = [c.vif for c in coefs if c.term != "intercept"]
+    stats = FitStats(
+        n_used=n, n_params=p, df_resid=df, sse=sse, sst=sst, r2=r2, adj_r2=adj, rmse=rmse,
+        cv_percent=cv, f_stat=f, f_p_value=fp, aic=aic, bic=bic, press=press,
+        pred_r2=pred_r2, cond_number=core.cond,
+        max_vif=float(np.max(nonint)) if nonint else math.nan, top_term_p_value=top,
+    )
+
+    scale_e = np.array([np.prod(basis.scales ** np.array(qq)) for qq in basis.powers])
+    centered = CenteredForm(
+        centers=tuple(float(c) for c in basis.centers),
+        terms=tuple(_centered_label(qq, spec.predictors, basis.centers) for qq in basis.powers),
+        estimates=tuple(float(v) for v in core.b / scale_e),
+        std_errors=tuple(float(v) for v in np.sqrt(np.diag(core.inv_scaled) * s2) / scale_e),
+    )
+
+    notes = list(spec.notes) + list(extra_notes)
+    if core.method != "exact" and core.error_bound > 1e-10:
+        digits = max(0.0, -math.log10(core.error_bound))
+        notes.append(f"the design is badly conditioned (condition number {core.cond:.3g}) and too "
+                     f"large for exact arithmetic: about {digits:.0f} significant digits are "
+                     "reliable; centering or fewer terms would help")
+    if df > 0 and n < 10 * p:
+        notes.append(f"{n} rows for {p} coefficients: fewer than 10 rows per coefficient "
+                     "(a common rule of thumb), so estimates may not hold up on new data")
+    form = monomials((x - basis.centers) / basis.scales, basis.powers)
+    hform = np.einsum("ij,jk,ik->i", form, core.inv_scaled, form)
+    return FitResult(
+        spec=spec, coefficients=coefs, stats=stats, centered=centered, level=level,
+        n_dropped=n_dropped, notes=tuple(notes), fitted=y - core.residuals,
+        residuals=core.residuals, leverage=core.leverage, used=used,
+        x_min=x.min(axis=0), x_max=x.max(axis=0), cov=core.inv_raw * s2,
+        method=core.method, response=response, basis=basis, scaled_coef=core.b,
+        scaled_inv=core.inv_scaled, weights=w, max_data_leverage_form=float(hform.max()),
+    )
+
+
+def _centered_label(q, names, centers) -> str:
+    if not any(q):
+        return "intercept"
+    shifted = tuple(f"({n} - {c!r})" if c != 0 else n for n, c in zip(names, centers))
+    return term_label(q, shifted)
+
+
+def _top_term_p(spec: ModelSpec, core: Core, s2: float, df: int) -> float:
+    """Partial F test that every highest-order term is zero (the curvature test), as a Wald
+    test in the scaled basis: identical to the F test of the nested fits for least squares."""
+    top = spec.top_order()
+    idx = [i for i, qq in enumerate(spec.all_powers) if sum(qq) == top]
+    if df <= 0 or not idx:
+        return math.nan
+    b = core.b[idx]
+    c = core.inv_scaled[np.ix_(idx, idx)] * s2
+    if s2 == 0:
+        return 0.0 if np.any(b != 0) else math.nan
+    f = float(b @ np.linalg.solve(c, b)) / len(idx)
+    return f_pvalue(f, len(idx), df)
+
+
+def predict(res: FitResult, new_x, level: float) -> Prediction:
+    x0 = np.asarray(new_x, dtype=float)
+    k = res.spec.k
+    if x0.ndim <= 1:
+        x0 = x0.reshape(-1, 1) if k == 1 else x0.reshape(1, -1)
+    if x0.shape[1] != k:
+        from .terms import ModelError
+
+        raise ModelError(f"new x has {x0.shape[1]} columns; the model has {k} predictors")
+    t0 = res.basis.design(x0)
+    fitted = t0 @ res.scaled_coef
+    form = np.einsum("ij,jk,ik->i", t0, res.scaled_inv, t0)
+    s = res.stats.rmse
+    q = t_quantile(res.stats.df_resid, level)
+    se_m = s * np.sqrt(form)
+    se_p = s * np.sqrt(1.0 + form)
+    outside = np.any((x0 < res.x_min) | (x0 > res.x_max), axis=1)
+    if k >= 2:
+        outside |= form > res.max_data_leverage_form * (1 + 1e-12)
+    return Prediction(fitted, fitted - q * se_m, fitted + q * se_m, fitted - q * se_p,
+                      fitted + q * se_p, form, outside, level)
