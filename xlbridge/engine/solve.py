@@ -246,7 +246,7 @@ def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
                 for j in range(p)] for i in range(p)]
     sc = [np.prod([float(s) ** e for s, e in zip(basis.scales, q)]) for q in basis.powers]
     b = np.array([float(g) * s for g, s in zip(gamma, sc)])  # exact: scales are powers of 2
-    inv_scaled = np.array([[float(inv_g[i][j]) / (sc[i] * sc[j]) for j in range(p)]
+    inv_scaled = np.array([[float(inv_g[i][j]) * (sc[i] * sc[j]) for j in range(p)]
                            for i in range(p)])
     sst = ex.sst_centered if spec.intercept else ex.sst_uncentered
     return Core(
