@@ -215,7 +215,8 @@ def test_nan_rows_dropped_and_counted():
 @pytest.mark.parametrize(
     "y, x, model, message",
     [
-        ([1, 2, 3, 4, 5, 6], [1, 1, 2, 2, 3, 3], 4, "degree 4 needs at least 5 distinct x values; found 3"),
+        ([1, 2, 3, 4, 5, 6], [1, 1, 2, 2, 3, 3], 4,
+         "degree 4 needs at least 5 distinct x values; found 3"),
         ([1, 2, 3], [1, 2, 3], 2, "needs at least 4 rows"),
         ([1, 2, 3], [1, 2], 1, "y has 3 rows but x has 2"),
         ([1, 2, 3, 4], [1, 2, 3, 4], 11, "degree must be 1 to 10"),
