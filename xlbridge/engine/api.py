@@ -22,6 +22,16 @@ def _names_of(obj) -> tuple[str, ...] | None:
     return None
 
 
+def _few_distinct(col: np.ndarray, need: int) -> bool:
+    """True unless ``col`` has at least ``need`` distinct values (stops as soon as it does)."""
+    seen: set[float] = set()
+    for v in col:
+        seen.add(float(v))
+        if len(seen) >= need:
+            return False
+    return True
+
+
 def _as_float(a, what: str) -> np.ndarray:
     try:
         arr = np.asarray(a, dtype=float)
@@ -76,16 +86,21 @@ def fit(
     if wv is not None:
         used &= ~np.isnan(wv)
     for what, arr in (("y", yv), ("x", xv), ("weights", wv)):
-        if arr is not None and np.isinf(arr[used]).any():
-            row = int(np.argwhere(np.isinf(arr.reshape(len(yv), -1)[used]).any(axis=1))[0, 0])
-            raise ModelError(f"{what} has an infinite value (row {row + 1} of the rows used)")
+        if arr is not None and np.isinf(arr).any():
+            bad = np.isinf(arr.reshape(len(yv), -1)).any(axis=1) & used
+            if bad.any():
+                row = int(np.argmax(bad)) + 1
+                raise ModelError(f"{what} has an infinite value in row {row}")
     if wv is not None and np.any(wv[used] <= 0):
         raise ModelError("weights must be positive numbers")
     n_dropped = int(np.count_nonzero(~used))
-    yu, xu = yv[used], xv[used]
-    wu = None if wv is None else wv[used]
+    if n_dropped:
+        yu, xu = yv[used], xv[used]
+        wu = None if wv is None else wv[used]
+    else:
+        yu, xu, wu = yv, xv, wv
     n, p = len(yu), spec.n_params
-    if spec.kind == "polynomial":
+    if spec.kind == "polynomial" and _few_distinct(xu[:, 0], spec.degree + 1):
         distinct = len(np.unique(xu[:, 0]))
         if distinct < spec.degree + 1:
             raise ModelError(f"degree {spec.degree} needs at least {spec.degree + 1} distinct "
@@ -98,8 +113,4 @@ def fit(
     if wu is not None and not math.isfinite(float(np.sum(wu))):
         raise ModelError("weights are too large")
     core = solve(xu, yu, wu, spec)
-    from .solve import choose_basis
-
-    basis = choose_basis(xu, wu, spec)
-    return inference.build(spec, core, basis, xu, yu, wu, float(level), used, n_dropped,
-                           response)
+    return inference.build(spec, core, xu, yu, wu, float(level), used, n_dropped, response)

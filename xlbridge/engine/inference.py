@@ -7,7 +7,7 @@ import math
 import numpy as np
 
 from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction
-from .solve import Basis, Core, choose_basis, monomials
+from .solve import Core, choose_basis, monomials
 from .terms import ModelSpec, term_label
 
 
@@ -40,48 +40,37 @@ def f_pvalue(f: float, df1: float, df2: float) -> float:
     return float(_special().fdtrc(df1, df2, f))
 
 
-def weighted_ss(col: np.ndarray, w: np.ndarray | None, center: bool) -> float:
-    """Sum of squares of a column, about its weighted mean when ``center``."""
-    d = col - np.average(col, weights=w) if center else col
-    return float(np.sum(d * d) if w is None else np.sum(w * d * d))
+def vifs(inv_diag: np.ndarray, ss: np.ndarray) -> np.ndarray:
+    """VIF_j = [(X'WX)^-1]_jj * SS_j, which equals 1 / (1 - R^2_j) of column j on the others
+    (SS_j and R^2_j about the mean when the model has an intercept, about zero otherwise)."""
+    return np.asarray(inv_diag) * np.asarray(ss)
 
 
-def vifs(inv_diag: np.ndarray, columns, w: np.ndarray | None, intercept: bool) -> np.ndarray:
-    """VIF_j = [(X'WX)^-1]_jj * SS_j: equals 1 / (1 - R^2_j) of x_j on the other columns
-    (R^2 centered when the model has an intercept, uncentered otherwise)."""
-    return np.array([d * weighted_ss(c, w, intercept) for d, c in zip(inv_diag, columns)])
+def _spread_gram(gram: np.ndarray, intercept: bool) -> np.ndarray:
+    """Cross-products of the columns about their weighted means (intercept column first)."""
+    if not intercept:
+        return gram
+    return gram - np.outer(gram[0], gram[0]) / gram[0, 0]
 
 
-def _centered_vifs(x: np.ndarray, w, spec: ModelSpec, basis: Basis, inv_scaled) -> np.ndarray:
-    """VIFs of the same terms with every predictor centered at its mean before powers."""
-    t = basis.design(x)
-    if not all(spec.centrable()):
-        # the model's own basis could not be centered: build the centered model separately
-        centers = np.average(x, axis=0, weights=w)
-        scales = choose_basis(x, w, spec).scales
-        t = monomials((x - centers) / scales, basis.powers)
-        a = t if w is None else t * np.sqrt(w)[:, None]
-        norms = np.linalg.norm(a, axis=0)
-        _, r = np.linalg.qr(a / norms)
-        rinv = np.linalg.inv(r)
-        inv_scaled = (rinv @ rinv.T) / np.outer(norms, norms)
-    return vifs(np.diag(inv_scaled), t.T, w, spec.intercept)
-
-
-def raw_columns(x: np.ndarray, powers):
-    """Raw-unit design columns, one at a time (bounded memory on large data)."""
-    for q in powers:
-        col = np.ones(x.shape[0])
-        for j, e in enumerate(q):
-            if e:
-                col = col * x[:, j] ** e
-        yield col
+def _centered_model_vifs(x: np.ndarray, w, spec: ModelSpec) -> np.ndarray:
+    """VIFs of the same terms built from predictors centered at their means, for models whose
+    own basis could not be centered (missing lower-order terms)."""
+    centers = np.average(x, axis=0, weights=w)
+    scales = choose_basis(x, w, spec).scales
+    t = monomials((x - centers) / scales, spec.all_powers)
+    a = t if w is None else t * np.sqrt(w)[:, None]
+    norms = np.linalg.norm(a, axis=0)
+    _, r = np.linalg.qr(a / norms)
+    rinv = np.linalg.inv(r)
+    inv_diag = np.diag(rinv @ rinv.T) / norms**2
+    gram = (r.T @ r) * np.outer(norms, norms)
+    return vifs(inv_diag, np.diag(_spread_gram(gram, spec.intercept)))
 
 
 def build(
     spec: ModelSpec,
     core: Core,
-    basis: Basis,
     x: np.ndarray,
     y: np.ndarray,
     w: np.ndarray | None,
@@ -91,6 +80,7 @@ def build(
     response: str,
     extra_notes: tuple[str, ...] = (),
 ) -> FitResult:
+    basis = core.basis
     n = len(y)
     p = spec.n_params
     df = n - p
@@ -105,11 +95,15 @@ def build(
     q = t_quantile(df, level)
     lo, hi = core.beta - q * se, core.beta + q * se
 
-    icol = 0 if spec.intercept else None
-    vif_raw = vifs(np.diag(core.inv_raw), raw_columns(x, basis.powers), w, spec.intercept)
-    vif_c = _centered_vifs(x, w, spec, basis, core.inv_scaled)
-    if icol is not None:
-        vif_raw[icol] = vif_c[icol] = math.nan
+    spread = _spread_gram(core.gram, spec.intercept)
+    v = basis.raw_in_scaled()
+    vif_raw = vifs(np.diag(core.inv_raw), np.einsum("em,ef,fm->m", v, spread, v))
+    if all(spec.centrable()):  # the basis is centered at the means already
+        vif_c = vifs(np.diag(core.inv_scaled), np.diag(spread))
+    else:
+        vif_c = _centered_model_vifs(x, w, spec)
+    if spec.intercept:
+        vif_raw[0] = vif_c[0] = math.nan
 
     coefs = tuple(
         Coefficient(spec.terms[i], float(core.beta[i]), float(se[i]), float(tr[i]),
@@ -166,8 +160,7 @@ def build(
     if df > 0 and n < 10 * p:
         notes.append(f"{n} rows for {p} coefficients: fewer than 10 rows per coefficient "
                      "(a common rule of thumb), so estimates may not hold up on new data")
-    form = monomials((x - basis.centers) / basis.scales, basis.powers)
-    hform = np.einsum("ij,jk,ik->i", form, core.inv_scaled, form)
+    hform = core.leverage if w is None else core.leverage / w
     return FitResult(
         spec=spec, coefficients=coefs, stats=stats, centered=centered, level=level,
         n_dropped=n_dropped, notes=tuple(notes), fitted=y - core.residuals,

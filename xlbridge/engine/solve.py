@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from fractions import Fraction
+from math import comb
 
 import numpy as np
 
@@ -58,24 +59,42 @@ class Basis:
             div.append(d)
         return [[v / d for v, d in zip(row, div)] for row in m]
 
+    def raw_in_scaled(self) -> np.ndarray:
+        """Column m holds raw monomial x^m written on the scaled columns t^e: from
+        x_j = s_j t_j + c_j, entry [e, m] = prod_j binom(m_j, e_j) s_j^e_j c_j^(m_j - e_j)."""
+        p = len(self.powers)
+        out = np.zeros((p, p))
+        for i, e in enumerate(self.powers):
+            for k, m in enumerate(self.powers):
+                if all(ej <= mj for ej, mj in zip(e, m)):
+                    v = 1.0
+                    for ej, mj, s, c in zip(e, m, self.scales, self.centers):
+                        v *= comb(mj, ej) * float(s) ** ej * float(c) ** (mj - ej)
+                    out[i, k] = v
+        return out
+
 
 def monomials(t: np.ndarray, powers: tuple[tuple[int, ...], ...]) -> np.ndarray:
-    """Columns prod_j t_j^e_j, Fortran order, powers built by repeated multiplication."""
+    """Columns prod_j t_j^e_j (Fortran order). Each column is one multiplication of a column
+    already built (a parent with one exponent lower), written in place."""
     n, k = t.shape
-    cache: dict[tuple[int, int], np.ndarray] = {}
-
-    def power(j: int, e: int) -> np.ndarray:
-        if (j, e) not in cache:
-            cache[(j, e)] = t[:, j].copy() if e == 1 else power(j, e - 1) * t[:, j]
-        return cache[(j, e)]
-
     out = np.empty((n, len(powers)), order="F")
+    tcols = [np.ascontiguousarray(t[:, j]) for j in range(k)]
+    done: dict[tuple[int, ...], int] = {}
     for i, q in enumerate(powers):
         col = out[:, i]
-        col[:] = 1.0
-        for j, e in enumerate(q):
-            if e:
-                col *= power(j, e)
+        if not any(q):
+            col.fill(1.0)
+        else:
+            j = next(j for j, e in enumerate(q) if e)
+            parent = q[:j] + (q[j] - 1,) + q[j + 1 :]
+            if not any(parent):
+                col[:] = tcols[j]
+            elif parent in done:
+                np.multiply(out[:, done[parent]], tcols[j], out=col)
+            else:
+                np.multiply(monomials(t, (parent,))[:, 0], tcols[j], out=col)
+        done[q] = i
     return out
 
 
@@ -109,6 +128,8 @@ class Core:
     cond: float  # 2-norm condition number of the unit-column scaled design
     method: str  # "qr", "cholesky" or "exact"
     error_bound: float  # estimated relative error of the double-precision solve
+    basis: Basis
+    gram: np.ndarray  # T'WT, scaled basis
 
 
 def _alias_message(spec: ModelSpec, col: int, x: np.ndarray) -> str:
@@ -141,16 +162,17 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     """Weighted least squares of y on the model's columns; raises ModelError if singular."""
     n = len(y)
     basis = choose_basis(x, w, spec)
-    t = basis.design(x)
-    p = t.shape[1]
+    an = basis.design(x)  # becomes the weighted, unit-column design in place
+    p = an.shape[1]
     sw = None if w is None else np.sqrt(w)
-    a = t if sw is None else t * sw[:, None]
+    if sw is not None:
+        an *= sw[:, None]
     z = y if sw is None else y * sw
-    norms = np.sqrt(np.einsum("ij,ij->j", a, a))
+    norms = np.sqrt(np.einsum("ij,ij->j", an, an))
     for j in range(p):
         if not norms[j] > 0:
             raise ModelError(_alias_message(spec, j, x))
-    an = a / norms
+    an /= norms
     method = "qr"
     r_fac = None
     if n >= CHOLESKY_MIN_ROWS:
@@ -179,8 +201,11 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
         bn = bn + inv_n @ (an.T @ (z - an @ bn))  # corrected semi-normal equations
         h = _leverage(an, rinv)
     resid_w = z - an @ bn
+    del an
     b = bn / norms
-    inv_scaled = inv_n / np.outer(norms, norms)
+    outer = np.outer(norms, norms)
+    inv_scaled = inv_n / outer
+    gram = (r_fac.T @ r_fac) * outer
     sv = np.linalg.svd(r_fac, compute_uv=False)
     cond = float(sv[0] / sv[-1])
 
@@ -190,19 +215,21 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     inv_raw = mf @ inv_scaled @ mf.T
     resid = resid_w if sw is None else resid_w / sw
     sse = float(resid_w @ resid_w)
-    if spec.intercept:
-        ybar = np.average(y, weights=w)
-        dev = (y - ybar) if sw is None else (y - ybar) * sw
-        sst = float(dev @ dev)
-    else:
-        sst = float(z @ z)
+    sst = weighted_sst(y, w) if spec.intercept else float(z @ z)
 
     fitn = float(np.linalg.norm(z - resid_w))
     bound = _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst)
-    core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound)
+    core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
+                gram)
     if bound > ACCEPT_ERROR and n * p * p <= EXACT_BUDGET:
         core = _exact(x, y, w, spec, basis, core)
     return core
+
+
+def weighted_sst(y: np.ndarray, w: np.ndarray | None) -> float:
+    """Total sum of squares about the (weighted) mean, two-pass."""
+    d = y - np.average(y, weights=w)
+    return float(d @ d) if w is None else float(np.sum(w * d * d))
 
 
 def _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst) -> float:
@@ -261,4 +288,6 @@ def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
         cond=core.cond,
         method="exact",
         error_bound=core.error_bound,
+        basis=basis,
+        gram=core.gram,
     )
