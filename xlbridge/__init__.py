@@ -10,8 +10,14 @@ from .engine import (  # noqa: E402
     ModelError,
     ModelSpec,
     Prediction,
+    checks,
     fit,
+    optimum,
+    row_diagnostics,
+    scan_degrees,
+    slopes,
 )
 
 __all__ = ["__version__", "fit", "FitResult", "FitStats", "Coefficient", "CenteredForm",
-           "Prediction", "ModelError", "ModelSpec"]
+           "Prediction", "ModelError", "ModelSpec", "checks", "row_diagnostics", "scan_degrees",
+           "optimum", "slopes"]

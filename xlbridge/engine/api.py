@@ -7,9 +7,12 @@ import math
 import numpy as np
 
 from . import inference
-from .result import FitResult
+from .result import FitResult, Remedy
 from .solve import solve
 from .terms import ModelError, parse_model
+
+SE_TYPES = ("ols", "hc0", "hc1", "hc2", "hc3")
+ERROR_TYPES = ("additive", "percent")
 
 
 def _names_of(obj) -> tuple[str, ...] | None:
@@ -49,15 +52,27 @@ def fit(
     level: float = 0.95,
     names=None,
     weights=None,
+    se: str = "ols",
+    log: bool = False,
+    error: str = "additive",
 ) -> FitResult:
     """Least-squares fit of ``y`` on a polynomial or second-order model in ``x``.
 
     ``x`` is 1-D (one predictor) or n x k; pandas objects lend their names. ``model`` is a
     degree 1-10, 'surface', 'linear', 'interact' or a term list like 'size, size^2'. Rows with
-    a NaN in y, x or weights are dropped and counted. Raises ModelError with what to fix.
+    a NaN in y, x or weights are dropped and counted. Remedies: ``se`` 'hc0'..'hc3' (robust
+    standard errors), ``log`` (fit ln y, predictions back-transformed with Duan's smearing),
+    ``error='percent'`` (multiplicative error, IRLS with weights 1/fitted^2). Raises
+    ModelError with what to fix.
     """
     if not isinstance(level, (int, float)) or isinstance(level, bool) or not 0 < level < 1:
         raise ModelError(f"level must be between 0 and 1 (e.g. 0.95); got {level!r}")
+    se = str(se).lower()
+    if se not in SE_TYPES:
+        raise ModelError(f"se must be one of {', '.join(SE_TYPES)}; got {se!r}")
+    error = str(error).lower()
+    if error not in ERROR_TYPES:
+        raise ModelError(f"error must be one of {', '.join(ERROR_TYPES)}; got {error!r}")
     if names is None:
         names = _names_of(x)
     response = _names_of(y)
@@ -112,5 +127,51 @@ def fit(
         )
     if wu is not None and not math.isfinite(float(np.sum(wu))):
         raise ModelError("weights are too large")
+    notes: list[str] = []
+    if log:
+        if np.any(yu <= 0):
+            row = int(np.argmax(yv <= 0)) + 1
+            raise ModelError(f"log=yes needs every y above 0; row {row} has {yv[row - 1]:g}")
+        yu = np.log(yu)
     core = solve(xu, yu, wu, spec)
-    return inference.build(spec, core, xu, yu, wu, float(level), used, n_dropped, response)
+    iterations = 0
+    if error == "percent":
+        core, wu, iterations = _percent_error_fit(xu, yu, wu, spec, core)
+        notes.append(f"multiplicative (percent) error fit: weights 1/fitted^2, converged in "
+                     f"{iterations} reweighting steps; rmse is the standard percent error as "
+                     "a fraction of the fitted value")
+    smearing = 1.0
+    if log:
+        smearing = float(np.mean(np.exp(core.residuals)))
+        notes.append(f"fitted on ln(y): coefficients and fit statistics are on the log scale; "
+                     f"predictions are back-transformed with Duan's smearing factor {smearing:.6g}")
+    if se != "ols":
+        notes.append(f"standard errors, tests and intervals use the {se.upper()} "
+                     "heteroscedasticity-consistent covariance")
+    remedy = Remedy(se=se, log=bool(log), error=error, smearing=smearing,
+                    iterations=iterations, notes=tuple(notes))
+    return inference.build(spec, core, xu, yu, wu, float(level), used, n_dropped, response,
+                           remedy)
+
+
+#: Reweighting stops when no raw coefficient moves by more than this, relative to its size.
+PERCENT_TOL = 1e-12
+PERCENT_MAX_STEPS = 100
+
+
+def _percent_error_fit(x, y, w, spec, core):
+    """Minimum-unbiased-percentage-error fit: reweight by 1/fitted^2 until converged."""
+    base = np.ones(len(y)) if w is None else w
+    for step in range(1, PERCENT_MAX_STEPS + 1):
+        fitted = y - core.residuals
+        if np.any(fitted <= 0):
+            raise ModelError("error=percent needs fitted values above 0 in every row; this "
+                             "model predicts 0 or less for some rows")
+        wn = base / fitted**2
+        new = solve(x, y, wn, spec)
+        change = np.max(np.abs(new.beta - core.beta) / np.maximum(np.abs(new.beta), 1e-300))
+        core = new
+        if change <= PERCENT_TOL:
+            return core, wn, step
+    raise ModelError(f"error=percent did not converge in {PERCENT_MAX_STEPS} reweighting steps; "
+                     "try a simpler model")

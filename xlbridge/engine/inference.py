@@ -6,7 +6,7 @@ import math
 
 import numpy as np
 
-from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction
+from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction, Remedy
 from .solve import Core, choose_basis, monomials
 from .terms import ModelSpec, term_label
 
@@ -78,8 +78,10 @@ def build(
     used: np.ndarray,
     n_dropped: int,
     response: str,
+    remedy: Remedy | None = None,
     extra_notes: tuple[str, ...] = (),
 ) -> FitResult:
+    remedy = remedy or Remedy()
     basis = core.basis
     n = len(y)
     p = spec.n_params
@@ -87,7 +89,14 @@ def build(
     sse = core.sse
     s2 = sse / df if df > 0 else math.nan
     rmse = math.sqrt(s2) if df > 0 else math.nan
-    se = np.sqrt(np.clip(np.diag(core.inv_raw), 0, None) * s2)
+    if remedy.se == "ols":
+        cov_scaled = core.inv_scaled * s2
+        cov_raw = core.inv_raw * s2
+    else:
+        cov_scaled = robust_cov(core, x, w, remedy.se)
+        mf = np.array([[float(v) for v in row] for row in basis.raw_map()])
+        cov_raw = mf @ cov_scaled @ mf.T
+    se = np.sqrt(np.clip(np.diag(cov_raw), 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
         tr = core.beta / se
     tr = np.where((se == 0) & (core.beta == 0), np.nan, tr)
@@ -118,7 +127,9 @@ def build(
         k0 = 1 if spec.intercept else 0
         adj = 1.0 - (1.0 - r2) * (n - k0) / df if df > 0 else math.nan
         df_model = p - k0
-        if df_model > 0 and df > 0:
+        if df_model > 0 and df > 0 and remedy.se != "ols":
+            f = wald_f(core.b, cov_scaled, list(range(k0, p)))
+        elif df_model > 0 and df > 0:
             f = ((sst - sse) / df_model) / s2 if s2 > 0 else math.inf
         else:
             f = math.nan
@@ -134,7 +145,7 @@ def build(
         ew = core.residuals if w is None else core.residuals * np.sqrt(w)
         press = float(np.sum((ew / (1.0 - h)) ** 2)) if np.all(h < 1) else math.inf
         pred_r2 = 1.0 - press / sst if sst > 0 else math.nan
-    top = _top_term_p(spec, core, s2, df)
+    top = _top_term_p(spec, core.b, cov_scaled, df)
     nonint = [c.vif for c in coefs if c.term != "intercept"]
     stats = FitStats(
         n_used=n, n_params=p, df_resid=df, sse=sse, sst=sst, r2=r2, adj_r2=adj, rmse=rmse,
@@ -148,10 +159,10 @@ def build(
         centers=tuple(float(c) for c in basis.centers),
         terms=tuple(_centered_label(qq, spec.predictors, basis.centers) for qq in basis.powers),
         estimates=tuple(float(v) for v in core.b / scale_e),
-        std_errors=tuple(float(v) for v in np.sqrt(np.diag(core.inv_scaled) * s2) / scale_e),
+        std_errors=tuple(float(v) for v in np.sqrt(np.diag(cov_scaled)) / scale_e),
     )
 
-    notes = list(spec.notes) + list(extra_notes)
+    notes = list(spec.notes) + list(remedy.notes) + list(extra_notes)
     if core.method != "exact" and core.error_bound > 1e-10:
         digits = max(0.0, -math.log10(core.error_bound))
         notes.append(f"the design is badly conditioned (condition number {core.cond:.3g}) and too "
@@ -165,10 +176,41 @@ def build(
         spec=spec, coefficients=coefs, stats=stats, centered=centered, level=level,
         n_dropped=n_dropped, notes=tuple(notes), fitted=y - core.residuals,
         residuals=core.residuals, leverage=core.leverage, used=used,
-        x_min=x.min(axis=0), x_max=x.max(axis=0), cov=core.inv_raw * s2,
+        x_min=x.min(axis=0), x_max=x.max(axis=0), cov=cov_raw,
         method=core.method, response=response, basis=basis, scaled_coef=core.b,
-        scaled_inv=core.inv_scaled, weights=w, max_data_leverage_form=float(hform.max()),
+        scaled_inv=core.inv_scaled, scaled_cov=cov_scaled, weights=w,
+        max_data_leverage_form=float(hform.max()), remedy=remedy, x=x, y=y,
     )
+
+
+def robust_cov(core: Core, x: np.ndarray, w: np.ndarray | None, kind: str) -> np.ndarray:
+    """Heteroscedasticity-consistent covariance (MacKinnon-White HC0-HC3) of the scaled-basis
+    coefficients: (A'A)^-1 A' diag(omega) A (A'A)^-1 with A the weighted design."""
+    a = core.basis.design(x)
+    e = core.residuals
+    if w is not None:
+        a *= np.sqrt(w)[:, None]
+        e = e * np.sqrt(w)
+    n, p = a.shape
+    h = core.leverage
+    omega = e * e
+    if kind == "hc1":
+        omega = omega * n / (n - p)
+    elif kind == "hc2":
+        omega = omega / (1.0 - h)
+    elif kind == "hc3":
+        omega = omega / (1.0 - h) ** 2
+    meat = a.T @ (a * omega[:, None])
+    return core.inv_scaled @ meat @ core.inv_scaled
+
+
+def wald_f(b: np.ndarray, cov: np.ndarray, idx: list[int]) -> float:
+    """F statistic of the Wald test that the coefficients ``idx`` are all zero."""
+    bb = b[idx]
+    c = cov[np.ix_(idx, idx)]
+    if not np.any(c):
+        return math.inf if np.any(bb != 0) else math.nan
+    return float(bb @ np.linalg.solve(c, bb)) / len(idx)
 
 
 def _centered_label(q, names, centers) -> str:
@@ -178,39 +220,57 @@ def _centered_label(q, names, centers) -> str:
     return term_label(q, shifted)
 
 
-def _top_term_p(spec: ModelSpec, core: Core, s2: float, df: int) -> float:
+def _top_term_p(spec: ModelSpec, b: np.ndarray, cov: np.ndarray, df: int) -> float:
     """Partial F test that every highest-order term is zero (the curvature test), as a Wald
     test in the scaled basis: identical to the F test of the nested fits for least squares."""
     top = spec.top_order()
     idx = [i for i, qq in enumerate(spec.all_powers) if sum(qq) == top]
     if df <= 0 or not idx:
         return math.nan
-    b = core.b[idx]
-    c = core.inv_scaled[np.ix_(idx, idx)] * s2
-    if s2 == 0:
-        return 0.0 if np.any(b != 0) else math.nan
-    f = float(b @ np.linalg.solve(c, b)) / len(idx)
+    f = wald_f(b, cov, idx)
+    if math.isinf(f):
+        return 0.0
     return f_pvalue(f, len(idx), df)
 
 
-def predict(res: FitResult, new_x, level: float) -> Prediction:
+def _new_points(res: FitResult, new_x) -> np.ndarray:
+    from .terms import ModelError
+
     x0 = np.asarray(new_x, dtype=float)
     k = res.spec.k
     if x0.ndim <= 1:
         x0 = x0.reshape(-1, 1) if k == 1 else x0.reshape(1, -1)
-    if x0.shape[1] != k:
-        from .terms import ModelError
+    if x0.ndim != 2 or x0.shape[1] != k:
+        raise ModelError(f"new x has {x0.shape[-1]} columns; the model has {k} predictors")
+    return x0
 
-        raise ModelError(f"new x has {x0.shape[1]} columns; the model has {k} predictors")
+
+def extrapolates(res: FitResult, x0: np.ndarray, form: np.ndarray) -> np.ndarray:
+    """Outside the observed range of any predictor or, with 2+ predictors, leverage above
+    the largest leverage among the rows fitted."""
+    outside = np.any((x0 < res.x_min) | (x0 > res.x_max), axis=1)
+    if res.spec.k >= 2:
+        outside |= form > res.max_data_leverage_form * (1 + 1e-12)
+    return outside
+
+
+def predict(res: FitResult, new_x, level: float) -> Prediction:
+    x0 = _new_points(res, new_x)
     t0 = res.basis.design(x0)
-    fitted = t0 @ res.scaled_coef
+    eta = t0 @ res.scaled_coef
     form = np.einsum("ij,jk,ik->i", t0, res.scaled_inv, t0)
+    var_m = np.einsum("ij,jk,ik->i", t0, res.scaled_cov, t0)
     s = res.stats.rmse
     q = t_quantile(res.stats.df_resid, level)
-    se_m = s * np.sqrt(form)
-    se_p = s * np.sqrt(1.0 + form)
-    outside = np.any((x0 < res.x_min) | (x0 > res.x_max), axis=1)
-    if k >= 2:
-        outside |= form > res.max_data_leverage_form * (1 + 1e-12)
-    return Prediction(fitted, fitted - q * se_m, fitted + q * se_m, fitted - q * se_p,
-                      fitted + q * se_p, form, outside, level)
+    se_m = np.sqrt(var_m)
+    se_p = np.sqrt(s * s + var_m)
+    lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
+    fitted = eta
+    if res.remedy.log:
+        # Duan's smearing: E[y | x] = exp(eta) * mean(exp(residuals)); the mean's interval is
+        # the log-scale interval mapped the same way; a new observation's interval maps its
+        # log-scale quantiles (no smearing: quantiles survive the monotone transform).
+        sm = res.remedy.smearing
+        fitted, lo_m, hi_m = np.exp(eta) * sm, np.exp(lo_m) * sm, np.exp(hi_m) * sm
+        lo_p, hi_p = np.exp(lo_p), np.exp(hi_p)
+    return Prediction(fitted, lo_m, hi_m, lo_p, hi_p, form, extrapolates(res, x0, form), level)

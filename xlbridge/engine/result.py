@@ -111,6 +111,30 @@ class Prediction:
             "level": self.level}
 
 
+@dataclass(frozen=True)
+class Remedy:
+    """Remedies applied to the fit: ``se`` is 'ols' or 'hc0'..'hc3'; ``log`` fits ln(y)
+    (``smearing`` is Duan's factor); ``error`` 'percent' is the multiplicative-error fit by
+    iteratively reweighted least squares with weights 1 / fitted^2."""
+
+    se: str = "ols"
+    log: bool = False
+    error: str = "additive"
+    smearing: float = 1.0
+    iterations: int = 0
+    notes: tuple[str, ...] = ()
+
+    def describe(self) -> str:
+        parts = []
+        if self.log:
+            parts.append("log y")
+        if self.error == "percent":
+            parts.append("percent error")
+        if self.se != "ols":
+            parts.append(f"se {self.se}")
+        return ", ".join(parts)
+
+
 @dataclass(frozen=True, eq=False)
 class FitResult:
     """Everything a fit produced. Arrays refer to the rows used, in input order."""
@@ -133,13 +157,23 @@ class FitResult:
     response: str
     basis: Basis
     scaled_coef: np.ndarray
-    scaled_inv: np.ndarray
+    scaled_inv: np.ndarray  # (T'WT)^-1, scaled basis: leverages
+    scaled_cov: np.ndarray  # covariance of scaled_coef (OLS or robust)
     weights: np.ndarray | None
     max_data_leverage_form: float
+    remedy: Remedy
+    x: np.ndarray  # predictor rows used
+    y: np.ndarray  # response used (ln y when remedy.log)
 
     @property
     def terms(self) -> tuple[str, ...]:
         return self.spec.terms
+
+    @property
+    def model_text(self) -> str:
+        """The model spec, with any remedy, e.g. 'degree 2 (log y, se hc3)'."""
+        extra = self.remedy.describe()
+        return f"{self.spec.spec} ({extra})" if extra else self.spec.spec
 
     @property
     def estimates(self) -> np.ndarray:
@@ -168,6 +202,8 @@ class FitResult:
             sign = "-" if math.copysign(1.0, v) < 0 else "+"
             parts.append((sign, body))
         name = response or self.response
+        if self.remedy.log:
+            name = f"ln({name})"
         first_sign, first = parts[0]
         text = f"{name} = {'-' if first_sign == '-' else ''}{first}"
         for sign, body in parts[1:]:
@@ -178,7 +214,7 @@ class FitResult:
         """JSON-ready dict: ``model``, ``coefficients`` and ``stats``."""
         return {
             "model": {
-                "spec": self.spec.spec,
+                "spec": self.model_text,
                 "terms": list(self.terms),
                 "intercept": self.spec.intercept,
                 "n_used": int(self.stats.n_used),

@@ -1,0 +1,275 @@
+"""Row diagnostics (residuals, leverage, influence) and checks of the regression assumptions.
+
+Thresholds (documented, and named in each check's note):
+- tests with a p-value: ``ok`` at p >= 0.05, ``watch`` for 0.01 <= p < 0.05, ``problem`` below;
+- Durbin-Watson: ``watch`` when |DW - 2| > 0.5, ``problem`` when > 1 (rule of thumb);
+- outliers: Bonferroni-adjusted p of the largest externally studentized residual < 0.05 is a
+  ``problem``, |t| > 3 without that is ``watch``;
+- Cook's distance: any D > 1 is a ``problem``, any D > 0.5 is ``watch``; the count above
+  4/n is reported (all three cut-offs are common practice);
+- collinearity: centered VIF > 10 is a ``problem``; raw VIF > 10 with centered VIFs <= 10 is
+  ``watch`` (interpret the centered form) (VIF 10: common practice);
+- extrapolation risk: largest leverage > 0.5 is ``watch``, > 0.9 ``problem``;
+- rows per coefficient: >= 10 ``ok``, 5 to 10 ``watch``, < 5 ``problem`` (common practice).
+Rows flagged in XB_ROWS: outlier (Bonferroni p < 0.05), high leverage (h > 2p/n, common
+practice), influential (Cook's D > 4/n).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .inference import t_pvalue
+from .result import FitResult
+from .solve import monomials
+
+P_WATCH, P_PROBLEM = 0.05, 0.01
+SHAPIRO_MAX_ROWS = 5000
+
+
+@dataclass(frozen=True)
+class RowDiagnostics:
+    """Per input row (rows not used hold NaN and the flag 'dropped')."""
+
+    fitted: np.ndarray
+    residual: np.ndarray
+    std_residual: np.ndarray  # internally studentized
+    studentized: np.ndarray  # externally studentized (deleted residual)
+    leverage: np.ndarray
+    cooks_d: np.ndarray
+    bonferroni_p: np.ndarray
+    flag: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        out = {}
+        for k in ("fitted", "residual", "std_residual", "studentized", "leverage", "cooks_d",
+                  "bonferroni_p"):
+            out[k] = [None if not math.isfinite(v) else float(v) for v in getattr(self, k)]
+        out["flag"] = list(self.flag)
+        return out
+
+
+@dataclass(frozen=True)
+class Check:
+    """One assumption check: statistic and p-value (nan where none), plain-word verdict."""
+
+    check: str
+    statistic: float
+    p_value: float
+    verdict: str
+    note: str
+
+    def to_dict(self) -> dict:
+        def plain(v):
+            return float(v) if math.isfinite(v) else None
+
+        return {"check": self.check, "statistic": plain(self.statistic),
+                "p_value": plain(self.p_value), "verdict": self.verdict, "note": self.note}
+
+
+def _whitened(res: FitResult) -> np.ndarray:
+    return res.residuals if res.weights is None else res.residuals * np.sqrt(res.weights)
+
+
+def _influence(res: FitResult):
+    """Internally and externally studentized residuals, Cook's D, Bonferroni p (rows used)."""
+    n, p = res.stats.n_used, res.stats.n_params
+    e = _whitened(res)
+    h = res.leverage
+    s2 = res.stats.sse / (n - p)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        one_h = 1.0 - h
+        internal = e / np.sqrt(s2 * one_h)
+        dof = n - p - 1
+        s2_del = (res.stats.sse - e * e / one_h) / dof if dof > 0 else np.full(n, np.nan)
+        external = e / np.sqrt(s2_del * one_h)
+        cooks = internal**2 * h / (p * one_h)
+        bonf = np.minimum(1.0, n * t_pvalue(external, dof)) if dof > 0 else np.full(n, np.nan)
+    return internal, external, cooks, bonf
+
+
+def row_diagnostics(res: FitResult) -> RowDiagnostics:
+    """Fitted values, residuals and influence measures aligned with the input rows."""
+    n, p = res.stats.n_used, res.stats.n_params
+    internal, external, cooks, bonf = _influence(res)
+    m = len(res.used)
+
+    def spread(v):
+        out = np.full(m, np.nan)
+        out[res.used] = v
+        return out
+
+    flags = []
+    lev_cut, cook_cut = 2 * p / n, 4 / n
+    j = 0
+    for used in res.used:
+        if not used:
+            flags.append("dropped")
+            continue
+        f = []
+        if bonf[j] < 0.05:
+            f.append("outlier")
+        if res.leverage[j] > lev_cut:
+            f.append("high leverage")
+        if cooks[j] > cook_cut:
+            f.append("influential")
+        flags.append(", ".join(f))
+        j += 1
+    return RowDiagnostics(spread(res.fitted), spread(res.residuals), spread(internal),
+                          spread(external), spread(res.leverage), spread(cooks), spread(bonf),
+                          tuple(flags))
+
+
+def _p_verdict(p: float) -> str:
+    if not math.isfinite(p):
+        return "n/a"
+    return "ok" if p >= P_WATCH else ("watch" if p >= P_PROBLEM else "problem")
+
+
+def _aux_r2(target: np.ndarray, design: np.ndarray) -> float:
+    """Centered R^2 of ``target`` regressed on ``design`` (which holds a constant column)."""
+    norms = np.linalg.norm(design, axis=0)
+    keep = norms > 0
+    q, r = np.linalg.qr(design[:, keep] / norms[keep])
+    diag = np.abs(np.diag(r))
+    q = q[:, diag > 1e-10]
+    fitted = q @ (q.T @ target)
+    dev = target - target.mean()
+    sst = float(dev @ dev)
+    return 1.0 - float(np.sum((target - fitted) ** 2)) / sst if sst > 0 else math.nan
+
+
+def _rank(design: np.ndarray) -> int:
+    norms = np.linalg.norm(design, axis=0)
+    return int(np.linalg.matrix_rank(design[:, norms > 0] / norms[norms > 0]))
+
+
+def _chi2_sf(x: float, df: float) -> float:
+    import scipy.special as sp
+
+    return float(sp.chdtrc(df, x)) if df > 0 else math.nan
+
+
+def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], ...]:
+    """(LM, p, df) of Breusch-Pagan (Koenker's studentized form, regressors = the model's
+    columns) and White (regressors = the columns, their squares and cross products)."""
+    e2 = _whitened(res) ** 2
+    n = len(e2)
+    zero = (0,) * res.spec.k
+    base = tuple(dict.fromkeys((zero,) + res.spec.all_powers))
+    t = (res.x - res.basis.centers) / res.basis.scales
+    bp_design = monomials(t, base)
+    white_powers = tuple(dict.fromkeys(
+        tuple(a + b for a, b in zip(p1, p2)) for i, p1 in enumerate(base) for p2 in base[i:]))
+    white_design = monomials(t, white_powers)
+    out = []
+    for design in (bp_design, white_design):
+        lm = n * _aux_r2(e2, design)
+        df = _rank(design) - 1
+        out.append((lm, _chi2_sf(lm, df), df))
+    return tuple(out)
+
+
+def durbin_watson(e: np.ndarray) -> float:
+    return float(np.sum(np.diff(e) ** 2) / np.sum(e * e)) if np.any(e) else math.nan
+
+
+def checks(res: FitResult) -> tuple[Check, ...]:
+    """Assumption checks with plain-word verdicts; thresholds in the module docstring."""
+    n, p = res.stats.n_used, res.stats.n_params
+    e = _whitened(res)
+    out: list[Check] = []
+    scale = " (on the log scale)" if res.remedy.log else ""
+
+    if n < 3 or not np.any(e):
+        out.append(Check("normality", math.nan, math.nan, "n/a",
+                         "too few rows or residuals all zero"))
+    elif n <= SHAPIRO_MAX_ROWS:
+        from scipy.stats import shapiro
+
+        w, pv = shapiro(e)
+        out.append(Check("normality", float(w), float(pv), _p_verdict(pv),
+                         f"Shapiro-Wilk W of the residuals{scale}; ok at p >= 0.05"))
+    else:
+        d = e - e.mean()
+        m2 = np.mean(d**2)
+        skew = np.mean(d**3) / m2**1.5
+        kurt = np.mean(d**4) / m2**2
+        jb = n / 6.0 * (skew**2 + (kurt - 3.0) ** 2 / 4.0)
+        pv = _chi2_sf(jb, 2)
+        out.append(Check("normality", float(jb), pv, _p_verdict(pv),
+                         f"Jarque-Bera (more than {SHAPIRO_MAX_ROWS} rows); skewness "
+                         f"{skew:.3g}, kurtosis {kurt:.3g}; ok at p >= 0.05"))
+
+    if np.any(e):
+        (bp, bp_p, bp_df), (wh, wh_p, wh_df) = heteroscedasticity_tests(res)
+        advice = "" if _p_verdict(min(bp_p, wh_p)) == "ok" else (
+            "; remedies: se=hc3, log=yes or error=percent")
+        out.append(Check("constant variance (Breusch-Pagan)", bp, bp_p, _p_verdict(bp_p),
+                         f"studentized LM test on the model's terms, {bp_df} df{advice}"))
+        out.append(Check("constant variance (White)", wh, wh_p, _p_verdict(wh_p),
+                         f"LM test on the terms, squares and cross products, {wh_df} df{advice}"))
+        dw = durbin_watson(e)
+        dev = abs(dw - 2.0)
+        verdict = "ok" if dev <= 0.5 else ("watch" if dev <= 1.0 else "problem")
+        rows = np.flatnonzero(res.used) + 1
+        out.append(Check("independence (Durbin-Watson)", dw, math.nan, verdict,
+                         f"residuals in input row order (rows {rows[0]}..{rows[-1]}, "
+                         f"{res.n_dropped} dropped); near 2 is ok, rule of thumb |DW-2| <= 0.5"))
+
+    internal, external, cooks, bonf = _influence(res)
+    rows = np.flatnonzero(res.used) + 1
+    if np.all(np.isnan(external)):
+        out.append(Check("outliers", math.nan, math.nan, "n/a", "too few rows"))
+    else:
+        i = int(np.nanargmax(np.abs(external)))
+        tmax, pb = float(external[i]), float(bonf[i])
+        verdict = "problem" if pb < 0.05 else ("watch" if abs(tmax) > 3 else "ok")
+        out.append(Check("outliers", tmax, pb, verdict,
+                         f"largest externally studentized residual at row {rows[i]}; "
+                         "p is Bonferroni-adjusted"))
+    if np.all(np.isnan(cooks)):
+        out.append(Check("influence (Cook's distance)", math.nan, math.nan, "n/a", ""))
+    else:
+        i = int(np.nanargmax(cooks))
+        above4, above1 = int(np.sum(cooks > 4 / n)), int(np.sum(cooks > 1))
+        verdict = "problem" if above1 else ("watch" if cooks[i] > 0.5 else "ok")
+        out.append(Check("influence (Cook's distance)", float(cooks[i]), math.nan, verdict,
+                         f"largest at row {rows[i]}; {above4} rows above 4/n = {4 / n:.3g}, "
+                         f"{above1} above 1 (watch above 0.5)"))
+
+    vifs = [c.vif for c in res.coefficients if c.term != "intercept"]
+    vifc = [c.vif_centered for c in res.coefficients if c.term != "intercept"]
+    if len(vifs) >= 2:
+        vmax, cmax = float(np.nanmax(vifs)), float(np.nanmax(vifc))
+        if cmax > 10:
+            verdict, advice = "problem", "terms are collinear even after centering"
+        elif vmax > 10:
+            verdict, advice = "watch", ("raw-unit terms move together (x and x^2): center the "
+                                        "predictors and read the centered form")
+        else:
+            verdict, advice = "ok", "terms are not collinear"
+        out.append(Check("collinearity (VIF)", vmax, math.nan, verdict,
+                         f"max VIF raw {vmax:.4g}, centered {cmax:.4g}; {advice}"))
+    else:
+        out.append(Check("collinearity (VIF)", math.nan, math.nan, "n/a", "one term only"))
+
+    hmax = float(np.max(res.leverage))
+    i = int(np.argmax(res.leverage))
+    verdict = "problem" if hmax > 0.9 else ("watch" if hmax > 0.5 else "ok")
+    ranges = "; ".join(f"{nm} {lo:.6g} to {hi:.6g}" for nm, lo, hi in
+                       zip(res.spec.predictors, res.x_min, res.x_max))
+    out.append(Check("extrapolation risk", hmax, math.nan, verdict,
+                     f"largest leverage at row {rows[i]}; data span {ranges}: predictions "
+                     "outside it (or, with 2+ predictors, beyond the largest leverage) are "
+                     "extrapolation and are flagged"))
+
+    ratio = n / p
+    verdict = "ok" if ratio >= 10 else ("watch" if ratio >= 5 else "problem")
+    out.append(Check("rows per coefficient", ratio, math.nan, verdict,
+                     f"{n} rows, {p} coefficients; 10 or more per coefficient is a common rule "
+                     "of thumb"))
+    return tuple(out)

@@ -1,0 +1,161 @@
+"""Degree scan: fit degrees 1..max with the same options and recommend one.
+
+Rule: among degrees that fit, the recommended degree is the lowest whose k-fold
+cross-validated RMSE is within one standard error of the best (the "one standard error"
+rule); polynomials always keep every lower power (hierarchy). Folds are deterministic:
+row i of the rows used (input order) goes to fold i mod k, which also spreads sorted data
+evenly over the folds; default 10 folds, leave-one-out when there are 20 rows or fewer.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .api import fit
+from .inference import f_pvalue
+from .terms import MAX_DEGREE, ModelError
+
+LOO_MAX_ROWS = 20
+DEFAULT_FOLDS = 10
+ROWS_PER_TERM = 10  # common rule of thumb
+
+
+@dataclass(frozen=True)
+class DegreeRow:
+    degree: int
+    r2: float
+    adj_r2: float
+    rmse: float
+    aic: float
+    aicc: float
+    bic: float
+    press: float
+    pred_r2: float
+    cv_rmse: float
+    cv_se: float
+    top_term_p_value: float
+    nested_f_p_value: float
+    choice: str
+    note: str
+
+    def to_dict(self) -> dict:
+        return {k: (v if not isinstance(v, float) or math.isfinite(v) else None)
+                for k, v in self.__dict__.items()}
+
+
+@dataclass(frozen=True)
+class DegreeScan:
+    rows: tuple[DegreeRow, ...]
+    chosen: int | None
+    folds: int
+    rule: str
+    notes: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        return {"rows": [r.to_dict() for r in self.rows], "chosen": self.chosen,
+                "folds": self.folds, "rule": self.rule, "notes": list(self.notes)}
+
+
+def _cv(y, x, w, degree, folds, opts) -> tuple[float, float]:
+    """Pooled k-fold RMSE on the original y scale and its standard error (one-SE rule)."""
+    n = len(y)
+    fold_of = np.arange(n) % folds
+    mse, sizes = [], []
+    for k in range(folds):
+        test = fold_of == k
+        train = ~test
+        res = fit(y[train], x[train], degree,
+                  weights=None if w is None else w[train], **opts)
+        pred = res.predict(x[test]).fitted
+        err = y[test] - pred
+        wt = np.ones(err.size) if w is None else w[test]
+        mse.append(float(np.sum(wt * err * err) / np.sum(wt)))
+        sizes.append(float(np.sum(wt)))
+    mse, sizes = np.array(mse), np.array(sizes)
+    cv_mse = float(np.sum(mse * sizes) / np.sum(sizes))
+    cv_rmse = math.sqrt(cv_mse)
+    se_mse = float(np.std(mse, ddof=1) / math.sqrt(folds)) if folds > 1 else math.nan
+    return cv_rmse, (se_mse / (2 * cv_rmse) if cv_rmse > 0 else 0.0)
+
+
+def scan_degrees(
+    y,
+    x,
+    max_degree: int,
+    *,
+    folds: int | None = None,
+    intercept: bool = True,
+    level: float = 0.95,
+    weights=None,
+    se: str = "ols",
+    log: bool = False,
+    error: str = "additive",
+) -> DegreeScan:
+    """Fit degrees 1..max_degree; statistics, cross-validation and a recommended degree."""
+    if isinstance(max_degree, bool) or not float(max_degree).is_integer():
+        raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}")
+    max_degree = int(max_degree)
+    if not 1 <= max_degree <= MAX_DEGREE:
+        raise ModelError(f"max_degree must be 1 to {MAX_DEGREE}; got {max_degree}")
+    opts = dict(intercept=intercept, level=level, se=se, log=log, error=error)
+    base = fit(y, x, 1, weights=weights, **opts)  # validates and finds the rows used
+    if base.spec.k != 1:
+        raise ModelError("the degree scan needs one predictor column")
+    yv = np.asarray(y, dtype=float).ravel()[base.used]
+    xv = np.asarray(x, dtype=float).reshape(len(base.used), -1)[base.used][:, 0]
+    wv = None if weights is None else np.asarray(weights, dtype=float).ravel()[base.used]
+    n = len(yv)
+    if folds is None:
+        folds = n if n <= LOO_MAX_ROWS else DEFAULT_FOLDS
+    if isinstance(folds, bool) or not float(folds).is_integer() or not 2 <= int(folds) <= n:
+        raise ModelError(f"folds must be a whole number from 2 to the number of rows ({n})")
+    folds = int(folds)
+    distinct = len(np.unique(xv))
+    rows, notes = [], []
+    prev_sse = base.stats.sst
+    for d in range(1, max_degree + 1):
+        note = []
+        try:
+            res = base if d == 1 else fit(yv, xv, d, weights=wv, **opts)
+        except ModelError as err:
+            rows.append(DegreeRow(d, *([math.nan] * 12), "", str(err)))
+            prev_sse = math.nan
+            continue
+        s = res.stats
+        p = s.n_params
+        aicc = s.aic + 2 * p * (p + 1) / (n - p - 1) if n - p - 1 > 0 else math.nan
+        try:
+            cv_rmse, cv_se = _cv(yv, xv, wv, d, folds, opts)
+        except ModelError as err:
+            cv_rmse = cv_se = math.nan
+            note.append(f"cross-validation failed: {err}")
+        if s.sse > 0 and s.df_resid > 0 and math.isfinite(prev_sse):
+            fstat = (prev_sse - s.sse) / (s.sse / s.df_resid)
+            nested = f_pvalue(fstat, 1, s.df_resid)
+        else:
+            nested = math.nan
+        prev_sse = s.sse
+        if n < ROWS_PER_TERM * p:
+            note.append(f"{n / p:.1f} rows per coefficient (fewer than {ROWS_PER_TERM}, a "
+                        "common rule of thumb)")
+        rows.append(DegreeRow(d, s.r2, s.adj_r2, s.rmse, s.aic, aicc, s.bic, s.press,
+                              s.pred_r2, cv_rmse, cv_se, s.top_term_p_value, nested, "",
+                              "; ".join(note)))
+    ok = [r for r in rows if math.isfinite(r.cv_rmse)]
+    chosen = None
+    if ok:
+        best = min(ok, key=lambda r: r.cv_rmse)
+        limit = best.cv_rmse + (best.cv_se if math.isfinite(best.cv_se) else 0.0)
+        chosen = min(r.degree for r in ok if r.cv_rmse <= limit)
+        rows = [DegreeRow(**{**r.__dict__, "choice": "recommended"}) if r.degree == chosen
+                else r for r in rows]
+    if distinct < max_degree + 1:
+        notes.append(f"only {distinct} distinct x values: degrees above {distinct - 1} cannot "
+                     "be fitted")
+    scheme = "leave-one-out" if folds == n else f"{folds}-fold (row i to fold i mod {folds})"
+    rule = ("lowest degree whose cross-validated RMSE is within one standard error of the "
+            f"best; {scheme} cross-validation")
+    return DegreeScan(tuple(rows), chosen, folds, rule, tuple(notes))
