@@ -1,0 +1,189 @@
+"""The options grammar shared by the worksheet functions and the command line.
+
+Text of ``key=value`` pairs separated by ``;``; keys and values ignore case and surrounding
+spaces: ``level=0.9; intercept=no; header=no; names=no``.
+
+Every option is one field of :class:`Options`; the field's metadata is the whole table
+entry (how to parse the text, what to list as valid, whether the value changes the fit and
+under which ``xlbridge.fit`` keyword). A later option is added by adding one field there.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field, fields, replace
+from typing import Any
+
+__all__ = [
+    "Options",
+    "OptionsError",
+    "option_keys",
+    "options_help",
+    "parse_options",
+]
+
+
+class OptionsError(ValueError):
+    """The options text cannot be read; the message lists what is valid."""
+
+
+# --- value parsers: text (already stripped, any case) -> value, or ValueError ---------------
+
+_YES = {"yes": True, "y": True, "true": True, "no": False, "n": False, "false": False}
+
+
+def _yes_no(text: str) -> bool:
+    try:
+        return _YES[text.lower()]
+    except KeyError:
+        raise ValueError("use yes or no") from None
+
+
+def _level(text: str) -> float:
+    t = text.replace(" ", "")
+    percent = t.endswith("%")
+    try:
+        value = float(t[:-1] if percent else t)
+    except ValueError:
+        raise ValueError("use a number between 0 and 1, e.g. 0.95 (or 95%)") from None
+    if percent:
+        value /= 100.0
+    if not (math.isfinite(value) and 0.0 < value < 1.0):
+        raise ValueError("use a number between 0 and 1, e.g. 0.95 (or 95%)")
+    return value
+
+
+def _choice(*allowed: str) -> Callable[[str], str]:
+    def parse(text: str) -> str:
+        t = text.lower()
+        if t not in allowed:
+            raise ValueError("use " + " or ".join(allowed))
+        return t
+
+    return parse
+
+
+def _opt(
+    default: Any,
+    parse: Callable[[str], Any],
+    valid: str,
+    help: str,
+    fit_kwarg: str | None = None,
+    show: Callable[[Any], str] | None = None,
+) -> Any:
+    """One row of the options table, stored as the field's metadata."""
+    meta = {"parse": parse, "valid": valid, "help": help, "fit_kwarg": fit_kwarg, "show": show}
+    return field(default=default, metadata=meta)
+
+
+def _show_yes_no(value: bool) -> str:
+    return "yes" if value else "no"
+
+
+@dataclass(frozen=True)
+class Options:
+    """Parsed options; build with :func:`parse_options`."""
+
+    level: float = _opt(
+        0.95, _level, "a number between 0 and 1", "confidence level of intervals",
+        fit_kwarg="level", show=repr,
+    )
+    intercept: bool = _opt(
+        True, _yes_no, "yes or no", "fit an intercept", fit_kwarg="intercept",
+        show=_show_yes_no,
+    )
+    header: bool = _opt(
+        True, _yes_no, "yes or no", "put a header row on top of result tables",
+        show=_show_yes_no,
+    )
+    names: str = _opt(
+        "auto", _choice("auto", "yes", "no"), "auto, yes or no",
+        "first row of y/x/new_x holds names: auto = when it is text",
+    )
+
+    def fit_kwargs(self) -> dict[str, Any]:
+        """Keyword arguments for ``xlbridge.fit`` taken from these options."""
+        return {
+            f.metadata["fit_kwarg"]: getattr(self, f.name)
+            for f in fields(self)
+            if f.metadata.get("fit_kwarg")
+        }
+
+    def to_text(self, only_changed: bool = True) -> str:
+        """Canonical options text that :func:`parse_options` reads back to equal options."""
+        parts = []
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if only_changed and value == f.default:
+                continue
+            show = f.metadata.get("show") or str
+            parts.append(f"{f.name}={show(value)}")
+        return "; ".join(parts)
+
+    def replace(self, **changes: Any) -> Options:
+        return replace(self, **changes)
+
+
+def option_keys() -> tuple[str, ...]:
+    """The valid option keys, in table order."""
+    return tuple(f.name for f in fields(Options))
+
+
+def options_help() -> str:
+    """One line per option: key, valid values, default, meaning (for --help texts)."""
+    lines = []
+    for f in fields(Options):
+        show = f.metadata.get("show") or str
+        lines.append(
+            f"{f.name}: {f.metadata['valid']} (default {show(f.default)}) - {f.metadata['help']}"
+        )
+    return "\n".join(lines)
+
+
+_FIELDS: Mapping[str, Any] = {f.name: f for f in fields(Options)}
+
+
+def _valid_keys_text() -> str:
+    return "; ".join(f"{f.name}=<{f.metadata['valid']}>" for f in fields(Options))
+
+
+def parse_options(text: object = None) -> Options:
+    """Read options text such as ``"level=0.9; intercept=no"``; blank or None = defaults.
+
+    Raises OptionsError with a message naming the valid keys or values.
+    """
+    if text is None:
+        return Options()
+    if isinstance(text, Options):
+        return text
+    if not isinstance(text, str):
+        raise OptionsError(
+            f"options must be text such as 'level=0.9; intercept=no'; got {text!r}. "
+            f"Valid options: {_valid_keys_text()}"
+        )
+    values: dict[str, Any] = {}
+    for raw in text.split(";"):
+        part = raw.strip()
+        if not part:
+            continue
+        key, sep, value = part.partition("=")
+        key = re.sub(r"\s+", "", key).lower()
+        value = value.strip()
+        if not sep or not key:
+            raise OptionsError(
+                f"option {part!r} is not key=value. Valid options: {_valid_keys_text()}"
+            )
+        f = _FIELDS.get(key)
+        if f is None:
+            raise OptionsError(
+                f"unknown option {key!r}. Valid options: {_valid_keys_text()}"
+            )
+        if key in values:
+            raise OptionsError(f"option {key!r} is given twice")
+        try:
+            values[key] = f.metadata["parse"](value)
+        except ValueError as exc:
+            raise OptionsError(f"option {key}={value!r} is not valid: {exc}") from None
+    return Options(**values)
