@@ -34,6 +34,11 @@ EXPECTED_ARGS = {
     "XB_STATS": ["y", "x", "model", "options"],
     "XB_PREDICT": ["y", "x", "model", "new_x", "options"],
     "XB_EQUATION": ["y", "x", "model", "options"],
+    "XB_DEGREES": ["y", "x", "max_degree", "options"],
+    "XB_CHECKS": ["y", "x", "model", "options"],
+    "XB_ROWS": ["y", "x", "model", "options"],
+    "XB_OPTIMUM": ["y", "x", "model", "options"],
+    "XB_SLOPE": ["y", "x", "model", "at_x", "options"],
     "XB_INFO": [],
 }
 

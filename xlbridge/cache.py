@@ -14,7 +14,7 @@ from typing import Generic, TypeVar
 
 import numpy as np
 
-__all__ = ["LRUCache", "content_key", "FIT_CACHE"]
+__all__ = ["LRUCache", "content_key", "FIT_CACHE", "SCAN_CACHE"]
 
 V = TypeVar("V")
 
@@ -99,3 +99,6 @@ def _fit_rows(result: object) -> float:
 
 # a fit keeps a few float arrays per input row: bound the rows held, not only the count
 FIT_CACHE: LRUCache = LRUCache(maxsize=32, max_weight=1_000_000, weigh=_fit_rows)
+
+# degree scans refit every degree on every fold: worth keeping, fewer of them
+SCAN_CACHE: LRUCache = LRUCache(maxsize=16)

@@ -285,6 +285,11 @@ def clean_cells(value: Any, what: str = "x", *, names: str = "auto",
     return CleanCells(arr, codes, header)
 
 
+def drop_reason(code: int) -> str:
+    """Why a row with this cell code was left out ("" for a usable row)."""
+    return _REASON.get(int(code), "")
+
+
 def _row_codes(*blocks: np.ndarray) -> np.ndarray:
     return np.max(np.hstack([b.reshape(b.shape[0], -1) for b in blocks]), axis=1)
 
@@ -384,6 +389,7 @@ class FitInput:
     model: int | str
     options: Options
     drops: tuple[tuple[str, int], ...]
+    row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (see _REASON)
 
     @property
     def n_dropped(self) -> int:
@@ -428,7 +434,7 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     row_codes = _row_codes(yc.codes, xc.codes)
     response = yc.names[0] if yc.names else None
     return FitInput(yc.values[:, 0], xc.values, xc.names, response, mod, opts,
-                    _drop_summary(row_codes))
+                    _drop_summary(row_codes), row_codes)
 
 
 def _fit_now(inp: FitInput) -> FitResult:
@@ -552,7 +558,7 @@ def stats_table(result: FitResult, options: Options | None = None) -> Table:
     then ``note`` rows (engine notes, dropped rows, blank values)."""
     opts = options or Options()
     rows: list[list[Any]] = [["statistic", "value"]] if opts.header else []
-    rows.append(["model", result.spec.spec])
+    rows.append(["model", result.model_text])
     blanks: dict[str, str] = {}
     for f in fields(result.stats):
         v = getattr(result.stats, f.name)
@@ -585,11 +591,11 @@ def _order_by_names(block: CleanCells, predictors: tuple[str, ...]) -> CleanCell
                       tuple(block.names[i] for i in idx))
 
 
-def predict_table(result: FitResult, new_x: Any, options: Options | None = None, *,
-                  ints_are_errors: bool = True) -> Table:
-    """One row per row of ``new_x`` (after its header row, if any): fitted value,
-    confidence and prediction intervals, leverage and ``range_flag`` (``inside``,
-    ``extrapolated`` or ``dropped: ...`` with blanks for a row that has no usable x)."""
+def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
+               ints_are_errors: bool = True, what: str = "new_x"
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Points to evaluate a fit at, from raw cells: ``(points, good, codes)`` with one entry
+    per row of ``what`` (after its header); ``points`` holds only the usable rows."""
     opts = options or Options()
     predictors = tuple(result.spec.predictors)
     k = len(predictors)
@@ -599,31 +605,49 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None,
         # a flat list is a column of points for one predictor, one point for k predictors
         if k > 1:
             if len(raw) != k:
-                raise CellError(f"new_x has {len(raw)} values in one row or column but the "
+                raise CellError(f"{what} has {len(raw)} values in one row or column but the "
                                 f"model has {k} predictors ({', '.join(predictors)}); "
                                 "give one row per point, one column per predictor")
             flat_as_row = True
-    block = clean_cells(raw, "new_x", names=opts.names, ints_are_errors=ints_are_errors,
+    block = clean_cells(raw, what, names=opts.names, ints_are_errors=ints_are_errors,
                         flat_as_row=flat_as_row)
     if block.n_rows == 0:
-        raise CellError("new_x has no rows; select the x values to predict at")
+        raise CellError(f"{what} has no rows; select the x values to evaluate at")
     if block.n_cols != k:
-        raise CellError(f"new_x has {block.n_cols} columns but the model has {k} "
+        raise CellError(f"{what} has {block.n_cols} columns but the model has {k} "
                         f"predictor{'s' if k != 1 else ''} ({', '.join(predictors)})")
     block = _order_by_names(block, predictors)
     codes = block.codes.max(axis=1)
     good = codes == OK
-    rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
-    pred = None
-    if good.any():
-        pts = block.values[good]
-        pred = result.predict(pts[:, 0] if k == 1 else pts, level=opts.level)
-    j = 0
-    for i in range(block.n_rows):
+    pts = block.values[good]
+    return (pts[:, 0] if k == 1 else pts), good, codes
+
+
+def _aligned(good: np.ndarray, codes: np.ndarray, width: int, what: str,
+             row_of: Callable[[int], list[Any]]) -> list[list[Any]]:
+    """One output row per input row: ``row_of(j)`` for the j-th usable row, blanks and a
+    ``dropped: ...`` flag for the others."""
+    rows, j = [], 0
+    for i in range(len(good)):
         if not good[i]:
-            rows.append([""] * (len(PREDICT_COLUMNS) - 1)
-                        + [f"dropped: {_REASON[int(codes[i])]} in new_x"])
+            rows.append([""] * (width - 1) + [f"dropped: {_REASON[int(codes[i])]} in {what}"])
             continue
+        rows.append(row_of(j))
+        j += 1
+    return rows
+
+
+def predict_table(result: FitResult, new_x: Any, options: Options | None = None, *,
+                  ints_are_errors: bool = True) -> Table:
+    """One row per row of ``new_x`` (after its header row, if any): fitted value,
+    confidence and prediction intervals, leverage and ``range_flag`` (``inside``,
+    ``extrapolated`` or ``dropped: ...`` with blanks for a row that has no usable x)."""
+    opts = options or Options()
+    pts, good, codes = new_points(result, new_x, opts, ints_are_errors=ints_are_errors)
+    rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
+    pred = result.predict(pts, level=opts.level) if good.any() else None
+
+    def row_of(j: int) -> list[Any]:
         assert pred is not None
         vals = [pred.fitted[j], pred.ci_lower[j], pred.ci_upper[j], pred.pi_lower[j],
                 pred.pi_upper[j], pred.leverage[j]]
@@ -631,8 +655,9 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None,
         missing = [name for name, v in zip(PREDICT_COLUMNS, vals) if _missing_word(v)]
         if missing:
             flag += "; blank: " + ", ".join(missing) + " not finite"
-        rows.append(vals + [flag])
-        j += 1
+        return vals + [flag]
+
+    rows += _aligned(good, codes, len(PREDICT_COLUMNS), "new_x", row_of)
     return _finish(rows)
 
 

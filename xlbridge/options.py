@@ -65,6 +65,21 @@ def _choice(*allowed: str) -> Callable[[str], str]:
     return parse
 
 
+def _folds(text: str) -> int | None:
+    t = text.lower()
+    if t == "auto":
+        return None
+    if t in ("loo", "leave-one-out"):
+        return 0  # leave-one-out: as many folds as rows
+    try:
+        v = float(t)
+    except ValueError:
+        raise ValueError("use auto, loo or a whole number 2 or more") from None
+    if not v.is_integer() or v < 2:
+        raise ValueError("use auto, loo or a whole number 2 or more")
+    return int(v)
+
+
 def _opt(
     default: Any,
     parse: Callable[[str], Any],
@@ -101,6 +116,25 @@ class Options:
     names: str = _opt(
         "auto", _choice("auto", "yes", "no"), "auto, yes or no",
         "first row of y/x/new_x holds names: auto = when it is text",
+    )
+    log: bool = _opt(
+        False, _yes_no, "yes or no",
+        "fit ln(y); predictions back-transformed with Duan's smearing", fit_kwarg="log",
+        show=_show_yes_no,
+    )
+    se: str = _opt(
+        "ols", _choice("ols", "hc0", "hc1", "hc2", "hc3"), "ols, hc0, hc1, hc2 or hc3",
+        "standard errors: ols, or heteroscedasticity-consistent hc0-hc3", fit_kwarg="se",
+    )
+    error: str = _opt(
+        "additive", _choice("additive", "percent"), "additive or percent",
+        "error model: percent = multiplicative error, weights 1/fitted^2 (IRLS)",
+        fit_kwarg="error",
+    )
+    folds: int | None = _opt(
+        None, _folds, "auto, loo or a whole number 2 or more",
+        "cross-validation folds for the degree scan (auto: 10, or leave-one-out up to 20 "
+        "rows)", show=lambda v: "auto" if v is None else ("loo" if v == 0 else str(v)),
     )
 
     def fit_kwargs(self) -> dict[str, Any]:

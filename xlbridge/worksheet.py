@@ -21,11 +21,12 @@ from collections.abc import Callable
 from types import SimpleNamespace
 from typing import Any, TypeVar
 
-from . import cells
+from . import cells, model_cells
 from .cells import Table, run_guarded
 
-__all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_INFO", "FUNCTIONS",
-           "CATEGORY", "DECORATORS"]
+__all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREES", "XB_CHECKS",
+           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_INFO", "FUNCTIONS", "CATEGORY",
+           "DECORATORS"]
 
 CATEGORY = "xlbridge"
 
@@ -80,8 +81,8 @@ _X = ("The predictor column(s), same height as y; one column for a degree, 2-6 c
       "'surface'. A text first row gives the names.")
 _MODEL = ("Degree 1-10 (one x column), or 'surface', 'linear', 'interact', or terms such "
           "as 'size, size^2, depth, size*depth'.")
-_OPTIONS = ("Optional text: level=0.95; intercept=yes; header=yes; names=auto "
-            "(key=value pairs separated by ;).")
+_OPTIONS = ("Optional text of key=value pairs separated by ; e.g. level=0.9; log=yes; "
+            "se=hc3; error=percent; intercept=no; header=no; names=no; folds=10.")
 _NEW_X = ("Points to predict at: one row per point, one column per predictor. Result rows "
           "line up with these rows.")
 
@@ -128,11 +129,64 @@ def XB_EQUATION(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 
 
 @xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("max_degree", doc="Highest polynomial degree to try, 1-10.", err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+def XB_DEGREES(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
+    """Degree scan 1..max_degree: r2, adj_r2, rmse, aic, aicc, bic, press, pred_r2, cross-validated rmse, tests, and the recommended degree (one-standard-error rule)."""  # noqa: E501
+    return run_guarded(model_cells.degrees_cells, y, x, max_degree, options)
+
+
+@xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+def XB_CHECKS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    """Checks of the regression assumptions (normality, constant variance, independence, outliers, influence, collinearity, extrapolation, rows per term) with verdicts ok / watch / problem."""  # noqa: E501
+    return run_guarded(model_cells.checks_cells, y, x, model, options)
+
+
+@xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+def XB_ROWS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    """Per input row: fitted, residual, standardized and studentized residuals, leverage, Cook's distance and a flag; rows line up with y and x."""  # noqa: E501
+    return run_guarded(model_cells.rows_cells, y, x, model, options)
+
+
+@xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+def XB_OPTIMUM(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    """Where the fitted curve or surface turns: stationary point with delta-method interval, fitted value there, minimum / maximum / saddle / ridge, inside the data or not."""  # noqa: E501
+    return run_guarded(model_cells.optimum_cells, y, x, model, options)
+
+
+@xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("at_x", doc="Points to take the slope at: one row per point, one column per "
+        "predictor. Result rows line up with these rows.", err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+def XB_SLOPE(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
+    """Marginal effect dy/dx of each predictor at the given points, e.g. the added price of one more unit of size, with delta-method standard error and interval."""  # noqa: E501
+    return run_guarded(model_cells.slope_cells, y, x, model, at_x, options)
+
+
+@xw.func(category=CATEGORY)
 def XB_INFO() -> Table:
     """Versions of xlbridge, Python and its numerical libraries, for audit trails."""
     return run_guarded(cells.info_cells)
 
 
 FUNCTIONS: dict[str, Callable[..., Table]] = {
-    f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_INFO)
+    f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_DEGREES,
+                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_INFO)
 }

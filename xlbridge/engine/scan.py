@@ -94,7 +94,10 @@ def scan_degrees(
     log: bool = False,
     error: str = "additive",
 ) -> DegreeScan:
-    """Fit degrees 1..max_degree; statistics, cross-validation and a recommended degree."""
+    """Fit degrees 1..max_degree; statistics, cross-validation and a recommended degree.
+
+    ``folds``: None for the default (10, or leave-one-out up to 20 rows), 0 for
+    leave-one-out, or a number of folds from 2 to the number of rows."""
     if isinstance(max_degree, bool) or not float(max_degree).is_integer():
         raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}")
     max_degree = int(max_degree)
@@ -110,6 +113,8 @@ def scan_degrees(
     n = len(yv)
     if folds is None:
         folds = n if n <= LOO_MAX_ROWS else DEFAULT_FOLDS
+    elif folds == 0:
+        folds = n  # leave-one-out
     if isinstance(folds, bool) or not float(folds).is_integer() or not 2 <= int(folds) <= n:
         raise ModelError(f"folds must be a whole number from 2 to the number of rows ({n})")
     folds = int(folds)
