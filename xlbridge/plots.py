@@ -1,0 +1,192 @@
+"""Figures of a fit (matplotlib, no GUI backend): curve with bands, residuals, normal
+quantiles, leverage and influence, degree scan, and the contour of a fitted surface.
+
+Every function returns a ``matplotlib.figure.Figure`` built without pyplot, so nothing
+depends on a display; ``save`` writes PNG or SVG.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .engine import FitResult, ModelError, row_diagnostics
+from .engine.scan import DegreeScan
+
+SIZE = (7.0, 4.6)  # inches; at 110 dpi a PNG is 770 x 506 pixels
+DPI = 110
+DATA = "#1f4e79"
+CURVE = "#c0392b"
+BAND_MEAN = "#f5b7b1"
+BAND_NEW = "#fdebd0"
+
+
+def _figure(size=SIZE):
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=size, dpi=DPI, layout="constrained")
+    return fig, fig.add_subplot()
+
+
+def _label(res: FitResult) -> str:
+    return f"ln({res.response})" if res.remedy.log else res.response
+
+
+def curve(res: FitResult, title: str | None = None, points: int = 400):
+    """Data, fitted curve, confidence band of the mean and prediction band (1 predictor)."""
+    if res.spec.k != 1:
+        raise ModelError("the curve plot needs one predictor; use the contour plot")
+    fig, ax = _figure()
+    x = res.x[:, 0]
+    lo, hi = float(res.x_min[0]), float(res.x_max[0])
+    grid = np.linspace(lo, hi, points)
+    pr = res.predict(grid)
+    level = int(round(res.level * 100))
+    y = np.exp(res.y) if res.remedy.log else res.y
+    ax.fill_between(grid, pr.pi_lower, pr.pi_upper, color=BAND_NEW,
+                    label=f"{level}% prediction interval (new job)")
+    ax.fill_between(grid, pr.ci_lower, pr.ci_upper, color=BAND_MEAN,
+                    label=f"{level}% confidence interval (mean)")
+    ax.plot(grid, pr.fitted, color=CURVE, lw=2, label=f"fitted ({res.model_text})")
+    ax.scatter(x, y, s=14, color=DATA, zorder=3, label=f"data ({res.stats.n_used} rows)")
+    ax.set_xlabel(res.spec.predictors[0])
+    ax.set_ylabel(res.response)
+    ax.set_title(title or f"{res.response} against {res.spec.predictors[0]}")
+    ax.legend(loc="best", fontsize=8, frameon=True)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def residuals(res: FitResult):
+    """Residuals against fitted values, with a smooth-free zero line."""
+    fig, ax = _figure()
+    ax.axhline(0, color="grey", lw=1)
+    ax.scatter(res.fitted, res.residuals, s=14, color=DATA)
+    ax.set_xlabel(f"fitted {_label(res)}")
+    ax.set_ylabel("residual")
+    ax.set_title("Residuals against fitted values (look for a funnel or a curve)")
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def normal_quantiles(res: FitResult):
+    """Standardized residuals against normal quantiles (Blom plotting positions)."""
+    from scipy.special import ndtri
+
+    d = row_diagnostics(res)
+    r = np.sort(d.std_residual[np.isfinite(d.std_residual)])
+    n = len(r)
+    q = ndtri((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+    fig, ax = _figure()
+    lim = float(max(np.max(np.abs(q)), np.max(np.abs(r))) * 1.05)
+    ax.plot([-lim, lim], [-lim, lim], color="grey", lw=1, label="normal reference")
+    ax.scatter(q, r, s=14, color=DATA, label="standardized residuals")
+    ax.set_xlabel("normal quantile")
+    ax.set_ylabel("standardized residual")
+    ax.set_title("Normal quantile plot of the residuals")
+    ax.legend(loc="upper left", fontsize=8)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def influence(res: FitResult):
+    """Leverage against externally studentized residuals, with Cook's distance contours."""
+    d = row_diagnostics(res)
+    ok = np.isfinite(d.studentized)
+    h, t = d.leverage[ok], d.studentized[ok]
+    p = res.stats.n_params
+    fig, ax = _figure()
+    ax.scatter(h, t, s=14, color=DATA, zorder=3)
+    hmax = min(0.999, float(max(np.max(h) * 1.15, 2.5 * p / res.stats.n_used)))
+    grid = np.linspace(1e-4, hmax, 200)
+    for dval, style in ((0.5, "--"), (1.0, "-")):
+        # Cook's D = r^2 h / (p (1 - h)) with r the internally studentized residual
+        r = np.sqrt(dval * p * (1 - grid) / grid)
+        ax.plot(grid, r, color=CURVE, ls=style, lw=1, label=f"Cook's D = {dval:g}")
+        ax.plot(grid, -r, color=CURVE, ls=style, lw=1)
+    ymax = float(max(3.5, np.max(np.abs(t)) * 1.15))
+    ax.set_ylim(-ymax, ymax)
+    ax.set_xlim(0, hmax)
+    ax.axvline(2 * p / res.stats.n_used, color="grey", ls=":", lw=1, label="leverage 2p/n")
+    rows = np.flatnonzero(res.used)[ok] + 1
+    for i in np.argsort(-np.abs(t))[:3]:
+        ax.annotate(f"row {rows[i]}", (h[i], t[i]), fontsize=7, xytext=(4, 4),
+                    textcoords="offset points")
+    ax.set_xlabel("leverage")
+    ax.set_ylabel("studentized residual")
+    ax.set_title("Influence: leverage against studentized residuals")
+    ax.legend(loc="lower right", fontsize=8)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def degree_scan(scan: DegreeScan):
+    """Cross-validated RMSE (with one-standard-error bars) and adjusted R^2 per degree."""
+    fig, ax = _figure()
+    rows = [r for r in scan.rows if np.isfinite(r.cv_rmse)]
+    d = [r.degree for r in rows]
+    ax.errorbar(d, [r.cv_rmse for r in rows], yerr=[r.cv_se for r in rows], color=DATA,
+                marker="o", capsize=4, label="cross-validated RMSE (one SE bars)")
+    ax.plot(d, [r.rmse for r in rows], color="grey", marker=".", ls="--",
+            label="residual SD (in-sample)")
+    if scan.chosen is not None:
+        sel = next(r for r in rows if r.degree == scan.chosen)
+        ax.scatter([sel.degree], [sel.cv_rmse], s=160, facecolors="none", edgecolors=CURVE,
+                   lw=2, zorder=4, label=f"recommended: degree {scan.chosen}")
+    ax.set_xticks(d)
+    ax.set_xlabel("polynomial degree")
+    ax.set_ylabel("RMSE")
+    ax.set_title("Degree scan: higher degree always fits better in-sample")
+    ax2 = ax.twinx()
+    ax2.plot(d, [r.adj_r2 for r in rows], color="#7d3c98", marker="s", ms=4, lw=1,
+             label="adjusted R²")
+    ax2.set_ylabel("adjusted R²", color="#7d3c98")
+    h1, l1 = ax.get_legend_handles_labels()
+    h2, l2 = ax2.get_legend_handles_labels()
+    ax.legend(h1 + h2, l1 + l2, loc="center right", fontsize=8)
+    ax.grid(alpha=0.3)
+    return fig
+
+
+def contour(res: FitResult, stationary=None, points: int = 120):
+    """Contours of a fitted surface over the first two predictors (others at their means),
+    the data, and the stationary point when given (an ``Optimum``)."""
+    if res.spec.k < 2:
+        raise ModelError("the contour plot needs two or more predictors")
+    fig, ax = _figure((7.0, 5.4))
+    a = np.linspace(res.x_min[0], res.x_max[0], points)
+    b = np.linspace(res.x_min[1], res.x_max[1], points)
+    aa, bb = np.meshgrid(a, b)
+    grid = np.tile(res.x.mean(axis=0), (aa.size, 1))
+    grid[:, 0], grid[:, 1] = aa.ravel(), bb.ravel()
+    zz = res.predict(grid).fitted.reshape(aa.shape)
+    cs = ax.contourf(aa, bb, zz, levels=14, cmap="RdYlBu_r", alpha=0.85)
+    lines = ax.contour(aa, bb, zz, levels=14, colors="k", linewidths=0.4)
+    ax.clabel(lines, fontsize=7, fmt="%.4g")
+    fig.colorbar(cs, ax=ax, label=f"fitted {res.response}")
+    ax.scatter(res.x[:, 0], res.x[:, 1], s=10, color="k", alpha=0.6, label="data")
+    if stationary is not None and stationary.points:
+        pt = stationary.points[0]
+        where = "inside" if pt.inside else "outside"
+        ax.scatter([pt.x[0]], [pt.x[1]], marker="*", s=260, color="white", edgecolors="k",
+                   zorder=5, label=f"stationary point: {pt.kind} ({where} the data)")
+        ax.set_xlim(min(a[0], pt.x[0]), max(a[-1], pt.x[0]))
+        ax.set_ylim(min(b[0], pt.x[1]), max(b[-1], pt.x[1]))
+    ax.set_xlabel(res.spec.predictors[0])
+    ax.set_ylabel(res.spec.predictors[1])
+    ax.set_title(f"Fitted {res.response} ({res.model_text})")
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=2, fontsize=8)
+    return fig
+
+
+def save(fig, path: str | Path) -> Path:
+    """Write a figure as PNG or SVG (by the file's suffix)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    path = Path(path)
+    if path.suffix.lower() not in (".png", ".svg"):
+        raise ValueError(f"plots are written as .png or .svg, not {path.suffix!r}")
+    FigureCanvasAgg(fig)
+    fig.savefig(path, dpi=DPI)
+    return path

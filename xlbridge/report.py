@@ -1,0 +1,236 @@
+"""A self-contained HTML report of one model: data used, equation, coefficients, statistics,
+checks, degree scan, figures (embedded PNG), cautions and versions. No network access and
+no external references, so the file can be archived with an estimate and printed."""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+import io
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__, plots
+from .engine import FitResult, ModelError, checks, optimum
+from .engine.scan import DegreeScan
+
+CAUTIONS = (
+    "These are statistical estimates from the rows listed above, not guarantees. Intervals "
+    "assume the model form is right and the errors are independent, of constant spread (or "
+    "the remedy chosen) and roughly normal; the checks section says how well that holds.",
+    "Predictions outside the range of the data (flagged as extrapolation) rest on the "
+    "model's shape alone; a polynomial can turn sharply just beyond the data.",
+    "Small samples give wide intervals and unstable curvature; fewer than 10 rows per "
+    "coefficient is a common warning sign.",
+    "Where an estimate feeds safety-related or structural decisions, follow the applicable "
+    "codes and standards and have it reviewed by a licensed professional.",
+)
+
+CSS = """
+body { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; margin: 2rem auto;
+       max-width: 60rem; color: #1b1b1b; line-height: 1.4; padding: 0 1rem; }
+h1 { font-size: 1.6rem; border-bottom: 2px solid #1f4e79; padding-bottom: .3rem; }
+h2 { font-size: 1.2rem; color: #1f4e79; margin-top: 2rem; border-bottom: 1px solid #ccd; }
+table { border-collapse: collapse; margin: .5rem 0; font-size: .85rem; }
+th, td { border: 1px solid #ccd; padding: .2rem .5rem; text-align: right; }
+th { background: #eef2f7; }
+td.t, th.t { text-align: left; }
+code.eq { display: block; white-space: pre-wrap; word-break: break-all; background: #f6f6f6;
+          padding: .6rem; font-size: .85rem; }
+.ok { background: #e3f4e1; } .watch { background: #fff3cd; } .problem { background: #f8d7da; }
+figure { margin: 1rem 0; page-break-inside: avoid; }
+figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
+figcaption { font-size: .8rem; color: #555; }
+.grid { display: grid; grid-template-columns: 1fr 1fr; gap: 1rem; }
+.small { font-size: .8rem; color: #444; }
+@media print { body { margin: 0; max-width: none; } h2 { page-break-after: avoid; }
+               .grid { grid-template-columns: 1fr 1fr; } }
+"""
+
+
+@dataclass(frozen=True)
+class Source:
+    """Where the data came from, as the user gave it."""
+
+    file: str = ""
+    y_ref: str = ""
+    x_ref: str = ""
+    options: str = ""
+
+
+def data_hash(res: FitResult) -> str:
+    """SHA-256 of the rows used (y then x, float64 little-endian) and the used-row mask."""
+    h = hashlib.sha256()
+    for a in (np.asarray(res.y, "<f8"), np.asarray(res.x, "<f8"),
+              np.asarray(res.used, dtype=np.uint8)):
+        h.update(np.ascontiguousarray(a).tobytes())
+    return h.hexdigest()
+
+
+def _num(v, digits: int = 6) -> str:
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    if isinstance(v, (float, np.floating)):
+        if not math.isfinite(float(v)):
+            return "n/a" if math.isnan(float(v)) else ("inf" if v > 0 else "-inf")
+        return f"{float(v):.{digits}g}"
+    return html.escape(str(v))
+
+
+def _table(head: list[str], rows: list[list], text=(0,), classes=None) -> str:
+    """HTML table; columns in ``text`` are left-aligned text, the others numbers."""
+    out = ["<table><tr>"]
+    out += [f'<th class="{"t" if i in text else ""}">{html.escape(h)}</th>'
+            for i, h in enumerate(head)]
+    out.append("</tr>")
+    for r_i, row in enumerate(rows):
+        cls = f' class="{classes[r_i]}"' if classes else ""
+        out.append(f"<tr{cls}>")
+        for i, v in enumerate(row):
+            cell = html.escape(str(v)) if i in text else _num(v)
+            out.append(f'<td class="{"t" if i in text else ""}">{cell}</td>')
+        out.append("</tr>")
+    out.append("</table>")
+    return "".join(out)
+
+
+def _png(fig) -> str:
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=plots.DPI)
+    return base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _figure(fig, caption: str) -> str:
+    return (f'<figure><img alt="{html.escape(caption)}" src="data:image/png;base64,{_png(fig)}">'
+            f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+
+
+def _versions() -> list[list[str]]:
+    import platform
+
+    import matplotlib
+    import scipy
+
+    return [["xlbridge", __version__], ["python", platform.python_version()],
+            ["numpy", np.__version__], ["scipy", scipy.__version__],
+            ["matplotlib", matplotlib.__version__]]
+
+
+def build_report(res: FitResult, *, scan: DegreeScan | None = None,
+                 source: Source | None = None, title: str | None = None) -> str:
+    """The whole report as one HTML string."""
+    src = source or Source()
+    title = title or f"Model report: {res.response} ({res.model_text})"
+    s = res.stats
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+             f"<title>{html.escape(title)}</title><style>{CSS}</style></head><body>",
+             f"<h1>{html.escape(title)}</h1>"]
+
+    parts.append("<h2 id='data'>Data</h2>")
+    rows = [["file", src.file or "(given directly)"], ["y", src.y_ref or res.response],
+            ["x", src.x_ref or ", ".join(res.spec.predictors)],
+            ["options", src.options or "(defaults)"], ["rows used", s.n_used],
+            ["rows dropped", res.n_dropped], ["SHA-256 of the rows used", data_hash(res)]]
+    for nm, lo, hi in zip(res.spec.predictors, res.x_min, res.x_max):
+        rows.append([f"range of {nm}", f"{lo:.6g} to {hi:.6g}"])
+    parts.append(_table(["item", "value"], rows, text=(0, 1)))
+
+    parts.append("<h2 id='equation'>Equation</h2>")
+    parts.append(f"<code class='eq'>{html.escape(res.equation())}</code>")
+    parts.append(f"<p class='small'>Model {html.escape(res.model_text)}; coefficients in raw "
+                 f"units with full precision; solved by the {html.escape(res.method)} path "
+                 "in a centered, scaled basis.</p>")
+
+    parts.append("<h2 id='coefficients'>Coefficients</h2>")
+    head = ["term", "estimate", "std_error", "t_ratio", "p_value",
+            f"ci_lower ({res.level:.0%})", f"ci_upper ({res.level:.0%})", "vif", "vif_centered"]
+    parts.append(_table(head, [[c.term, c.estimate, c.std_error, c.t_ratio, c.p_value,
+                                c.ci_lower, c.ci_upper, c.vif, c.vif_centered]
+                               for c in res.coefficients]))
+
+    parts.append("<h2 id='statistics'>Fit statistics</h2>")
+    parts.append(_table(["statistic", "value"],
+                        [[k, v] for k, v in s.__dict__.items()]))
+    if res.notes:
+        parts.append("<ul class='small'>" + "".join(f"<li>{html.escape(n)}</li>"
+                                                     for n in res.notes) + "</ul>")
+
+    parts.append("<h2 id='checks'>Checks of the assumptions</h2>")
+    cks = checks(res)
+    parts.append(_table(["check", "statistic", "p_value", "verdict", "note"],
+                        [[c.check, c.statistic, c.p_value, c.verdict, c.note] for c in cks],
+                        text=(0, 3, 4),
+                        classes=[c.verdict if c.verdict in ("ok", "watch", "problem") else ""
+                                 for c in cks]))
+
+    parts.append("<h2 id='degrees'>Degree scan</h2>")
+    if scan is not None:
+        parts.append(_table(["degree", "adj_r2", "rmse", "aicc", "bic", "pred_r2", "cv_rmse",
+                             "top_term_p_value", "choice"],
+                            [[str(r.degree), r.adj_r2, r.rmse, r.aicc, r.bic, r.pred_r2,
+                              r.cv_rmse, r.top_term_p_value, r.choice] for r in scan.rows],
+                            text=(0, 8)))
+        parts.append(f"<p class='small'>Rule: {html.escape(scan.rule)}.</p>")
+    else:
+        parts.append("<p class='small'>Not run for this model (the scan applies to one "
+                     "predictor).</p>")
+
+    parts.append("<h2 id='plots'>Plots</h2><div class='grid'>")
+    if res.spec.k == 1:
+        parts.append(_figure(plots.curve(res), "Fitted curve with confidence band of the mean "
+                                               "and prediction band of a new observation"))
+    else:
+        try:
+            opt = optimum(res)
+        except ModelError:
+            opt = None
+        parts.append(_figure(plots.contour(res, opt), "Contours of the fitted surface"))
+    parts.append(_figure(plots.residuals(res), "Residuals against fitted values"))
+    parts.append(_figure(plots.normal_quantiles(res), "Normal quantile plot"))
+    parts.append(_figure(plots.influence(res), "Leverage against studentized residuals"))
+    if scan is not None:
+        parts.append(_figure(plots.degree_scan(scan), "Degree scan"))
+    parts.append("</div>")
+
+    if res.spec.k >= 2 or (res.spec.degree or 0) >= 2:
+        try:
+            opt = optimum(res)
+            parts.append("<h2 id='optimum'>Stationary point</h2>")
+            rows = []
+            for pt in opt.points:
+                for nm, v, se, lo, hi in zip(opt.predictors, pt.x, pt.se, pt.ci_lower,
+                                             pt.ci_upper):
+                    rows.append([f"{pt.kind}: {nm}", v, se, lo, hi])
+                rows.append([f"{pt.kind}: fitted {res.response}", pt.fitted, math.nan,
+                             pt.fitted_ci_lower, pt.fitted_ci_upper])
+                rows.append([f"{pt.kind}: inside the data", pt.inside, math.nan, math.nan,
+                             math.nan])
+            parts.append(_table(["item", "value", "std_error", "ci_lower", "ci_upper"], rows))
+            if opt.note:
+                parts.append(f"<p class='small'>{html.escape(opt.note)}</p>")
+        except ModelError as exc:
+            parts.append(f"<p class='small'>{html.escape(str(exc))}</p>")
+
+    parts.append("<h2 id='cautions'>Cautions</h2><ul>")
+    parts += [f"<li>{html.escape(c)}</li>" for c in CAUTIONS]
+    parts.append("</ul>")
+    parts.append("<h2 id='versions'>Versions</h2>")
+    parts.append(_table(["component", "version"], _versions(), text=(0, 1)))
+    parts.append("</body></html>")
+    return "\n".join(parts)
+
+
+def write_report(path: str | Path, res: FitResult, **kwargs) -> Path:
+    """Write the report to ``path`` (UTF-8)."""
+    path = Path(path)
+    path.write_text(build_report(res, **kwargs), encoding="utf-8")
+    return path
