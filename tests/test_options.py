@@ -85,8 +85,9 @@ def test_options_are_frozen_and_keys_come_from_one_table():
 
 
 def test_fit_kwargs_only_carry_what_changes_the_fit():
-    o = parse_options("level=0.9; intercept=no; header=no; names=no")
-    assert o.fit_kwargs() == {"level": 0.9, "intercept": False}
+    o = parse_options("level=0.9; intercept=no; header=no; names=no; folds=5; se=hc3")
+    assert o.fit_kwargs() == {"level": 0.9, "intercept": False, "log": False, "se": "hc3",
+                              "error": "additive"}
 
 
 option_values = st.fixed_dictionaries({}, optional={

@@ -1,0 +1,662 @@
+"""Evaluate the XB_ formulas of a workbook with the worksheet functions themselves.
+
+Steps: find every formula cell (openpyxl: plain formulas and ``ArrayFormula``), keep those
+that call an XB_ function, read each call (:mod:`xlbridge.book.xbcall`), order the cells so
+that a cell reading another XB_ cell's result comes after it, and call the function in
+``xlbridge.worksheet.FUNCTIONS`` with the raw values xlwings would hand it.  A cell whose
+arguments cannot be evaluated exactly gets a message instead of a value.
+
+Used by ``xlbridge recalc`` (writes the results into a copy) and ``pin`` / ``verify``.
+"""
+
+from __future__ import annotations
+
+import inspect
+import re
+import zipfile
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from xlbridge.book.reader import Book, missing_value_message, xlwings_shape
+from xlbridge.book.refs import Area, RefError, parse_ref
+from xlbridge.book.safety import BookError
+from xlbridge.book.xbcall import (
+    ArrayConst,
+    Call,
+    Literal,
+    Missing,
+    Ref,
+    Spill,
+    Unsupported,
+    calls_xb,
+    parse_xb_formula,
+)
+
+__all__ = ["FormulaCell", "XbCell", "Evaluation", "evaluate_book", "formula_index",
+           "write_results"]
+
+Progress = Callable[[int, int, str], None]
+
+
+@dataclass(frozen=True)
+class FormulaCell:
+    sheet: str
+    row: int
+    col: int
+    text: str  # with leading "="
+    array_ref: Area | None = None  # set for array formulas
+
+
+@dataclass
+class XbCell:
+    """One XB_ formula and what evaluating it gave."""
+
+    formula: FormulaCell
+    call: Call | None = None
+    result: list[list[Any]] | None = None
+    message: str | None = None  # "xlbridge: ..." when there is no result
+    reads: list[Area] = field(default_factory=list)
+
+    @property
+    def sheet(self) -> str:
+        return self.formula.sheet
+
+    @property
+    def anchor(self) -> Area:
+        f = self.formula
+        return Area(f.sheet, f.row, f.col, f.row, f.col)
+
+    @property
+    def label(self) -> str:
+        return self.anchor.label()
+
+    @property
+    def function(self) -> str:
+        if self.call is not None:
+            return self.call.name
+        m = re.search(r"XB_[A-Za-z0-9_]*", self.formula.text, re.IGNORECASE)
+        return m.group(0).upper() if m else "XB_?"
+
+    @property
+    def ok(self) -> bool:
+        return self.result is not None and not _is_message(self.result)
+
+    def output_area(self) -> Area:
+        """Where the result goes: the anchor with the result's shape."""
+        a = self.anchor
+        if self.result is None:
+            return self.formula.array_ref or a
+        rows = len(self.result)
+        cols = max((len(r) for r in self.result), default=1)
+        return Area(a.sheet, a.r1, a.c1, a.r1 + max(rows, 1) - 1, a.c1 + max(cols, 1) - 1)
+
+    def region(self) -> Area:
+        """Cells this formula owns: its output and (array formulas) its array range."""
+        out = self.output_area()
+        arr = self.formula.array_ref
+        if arr is None:
+            return out
+        return Area(out.sheet, min(out.r1, arr.r1), min(out.c1, arr.c1),
+                    max(out.r2, arr.r2), max(out.c2, arr.c2))
+
+
+def _is_message(result: list[list[Any]]) -> bool:
+    return (
+        len(result) == 1 and len(result[0]) == 1 and isinstance(result[0][0], str)
+        and result[0][0].lower().startswith("xlbridge:")
+    )
+
+
+# --- finding formulas ------------------------------------------------------------------
+
+
+def _cell_formula(cell: Any, sheet: str) -> FormulaCell | None:
+    if getattr(cell, "data_type", None) != "f":
+        return None
+    v = cell.value
+    text = getattr(v, "text", None)
+    if text is not None:  # openpyxl ArrayFormula
+        try:
+            ref = parse_ref(v.ref)
+        except RefError:
+            ref = None
+        area = ref.with_sheet(sheet) if isinstance(ref, Area) else None
+        t = str(text)
+        return FormulaCell(sheet, cell.row, cell.column, t if t.startswith("=") else "=" + t,
+                           area)
+    if isinstance(v, str):
+        return FormulaCell(sheet, cell.row, cell.column, v if v.startswith("=") else "=" + v)
+    return None
+
+
+def _sheets_with_formulas(path: Path, book: Book) -> list[str]:
+    """Sheets whose XML holds a formula at all (a byte test; data sheets are skipped)."""
+    parts = book._structure_or_empty().sheet_parts  # noqa: SLF001 - same package
+    out = []
+    with zipfile.ZipFile(path) as zf:
+        for name in book.sheet_names:
+            part = parts.get(name)
+            if part is None:
+                out.append(name)
+                continue
+            data = zf.read(part)
+            if b"<f" in data or b"<sheetData" not in data:
+                out.append(name)
+    return out
+
+
+def formula_index(book: Book, workbook: Any = None) -> dict[str, dict[tuple[int, int],
+                                                                         FormulaCell]]:
+    """Every formula cell by sheet, from an open openpyxl workbook or (read-only) the file."""
+    index: dict[str, dict[tuple[int, int], FormulaCell]] = {s: {} for s in book.sheet_names}
+    if book.kind == "csv":
+        return index
+    if workbook is None:
+        from xlbridge.book.writer import _openpyxl
+
+        openpyxl = _openpyxl()
+        import warnings
+
+        wanted = _sheets_with_formulas(book.path, book)
+        if not wanted:
+            return index
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                wb = openpyxl.load_workbook(book.path, read_only=True, data_only=False,
+                                            keep_links=False)
+            except Exception as exc:
+                raise BookError(f"{book.path.name}: formulas cannot be read: {exc}") from None
+            try:
+                for name in wanted:
+                    if name not in wb.sheetnames:
+                        continue
+                    _index_sheet(index[name], wb[name], name)
+            finally:
+                wb.close()
+        return index
+    for ws in workbook.worksheets:
+        if ws.title in index:
+            _index_sheet(index[ws.title], ws, ws.title)
+    return index
+
+
+def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str) -> None:
+    cells = getattr(ws, "_cells", None)
+    it = cells.values() if cells is not None else (c for row in ws.iter_rows() for c in row)
+    for cell in it:
+        f = _cell_formula(cell, name)
+        if f is not None:
+            dest[(f.row, f.col)] = f
+
+
+# --- references inside ordinary formulas (dependency detection only) -------------------
+
+_SPLIT = re.compile(r"""("(?:[^"]|"")*")|('(?:[^']|'')*'!)|([(),+\-*/^&=<>;{}%\s])""")
+
+
+def _formula_refs(text: str) -> list[str]:
+    """Tokens of a formula that may be references (used to find dependencies, not to
+    compute anything)."""
+    body = text[1:] if text.startswith("=") else text
+    tokens: list[str] = []
+    cur = ""
+    depth = 0
+    i = 0
+    while i < len(body):
+        ch = body[i]
+        if ch == '"':
+            j = i + 1
+            while j < len(body) and not (body[j] == '"' and body[j + 1 : j + 2] != '"'):
+                j += 2 if body[j] == '"' else 1
+            i = j + 1
+            if cur:
+                tokens.append(cur)
+            cur = ""
+            continue
+        if ch == "'" and depth == 0:
+            j = i + 1
+            while j < len(body):
+                if body[j] == "'":
+                    if body[j + 1 : j + 2] == "'":
+                        j += 2
+                        continue
+                    break
+                j += 1
+            cur += body[i : j + 1]
+            i = j + 1
+            continue
+        if ch == "[":
+            depth += 1
+        elif ch == "]":
+            depth -= 1
+        if depth == 0 and ch in "(),+-*/^&=<>;{}% \t\r\n":
+            if cur and ch != "(":
+                tokens.append(cur)
+            cur = ""  # a token followed by "(" is a function name
+            i += 1
+            continue
+        cur += ch
+        i += 1
+    if cur:
+        tokens.append(cur)
+    return tokens
+
+
+# --- evaluation --------------------------------------------------------------------------
+
+
+class _CannotEvaluate(Exception):
+    pass
+
+
+@dataclass
+class Evaluation:
+    """The XB_ cells of a workbook, evaluated."""
+
+    book: Book
+    cells: list[XbCell]
+    formulas: dict[str, dict[tuple[int, int], FormulaCell]]
+
+    @property
+    def n_ok(self) -> int:
+        return sum(1 for c in self.cells if c.ok)
+
+    @property
+    def failed(self) -> list[XbCell]:
+        return [c for c in self.cells if not c.ok]
+
+
+class _Evaluator:
+    def __init__(self, book: Book, formulas: dict[str, dict[tuple[int, int], FormulaCell]],
+                 functions: dict[str, Callable[..., Any]]) -> None:
+        self.book = book
+        self.formulas = formulas
+        self.functions = functions
+        self.cells: list[XbCell] = []
+        for sheet in book.sheet_names:
+            for rc in sorted(formulas.get(sheet, {})):
+                f = formulas[sheet][rc]
+                if calls_xb(f.text):
+                    self.cells.append(XbCell(f))
+        self.by_anchor = {(c.sheet, c.formula.row, c.formula.col): c for c in self.cells}
+        self.done: set[int] = set()  # ids of cells evaluated in the current pass
+        self._taint_memo: dict[tuple[str, int, int], str | None] = {}
+
+    def _xb_regions_hit(self, area: Area) -> list[XbCell]:
+        return [x for x in self.cells if x.region().intersects(area)]
+
+    def _formulas_in(self, area: Area) -> list[FormulaCell]:
+        sheet = self.formulas.get(area.sheet or "", {})
+        if area.n_rows * area.n_cols <= len(sheet):
+            return [sheet[(r, c)] for r in range(area.r1, area.r2 + 1)
+                    for c in range(area.c1, area.c2 + 1) if (r, c) in sheet]
+        return [f for (r, c), f in sheet.items() if area.contains(r, c)]
+
+    def _formula_depends_on_xb(self, f: FormulaCell, depth: int = 0) -> str | None:
+        """Label of an XB_ cell an ordinary formula reads (directly or through others)."""
+        key = (f.sheet, f.row, f.col)
+        if key in self._taint_memo:
+            return self._taint_memo[key]
+        self._taint_memo[key] = None  # cycles among ordinary formulas end here
+        found = None
+        for tok in _formula_refs(f.text):
+            try:
+                area = self.book.resolve(tok, default_sheet=f.sheet)
+            except (BookError, RefError, ValueError):
+                continue
+            hit = self._xb_regions_hit(area)
+            if hit:
+                found = hit[0].label
+                break
+            if depth < 50:
+                for g in self._formulas_in(area):
+                    if not calls_xb(g.text):
+                        dep = self._formula_depends_on_xb(g, depth + 1)
+                        if dep:
+                            found = dep
+                            break
+            if found:
+                break
+        self._taint_memo[key] = found
+        return found
+
+    def _read(self, area: Area, me: XbCell) -> Any:
+        sheet = area.sheet or me.sheet
+        if me.region().intersects(area):
+            raise _CannotEvaluate(
+                f"{area.label()} overlaps the cell's own result (a circular reference)"
+            )
+        owners = self._xb_regions_hit(area)
+        for o in owners:
+            if id(o) not in self.done:
+                raise _CannotEvaluate(
+                    f"{area.label()} reads the result of {o.label}, which could not be "
+                    "evaluated first (circular XB_ references?)"
+                )
+            if not o.ok:
+                raise _CannotEvaluate(f"{area.label()} reads {o.label}, which has no result "
+                                      f"({_first_line(o)})")
+        missing = [rc for rc in self.book.formulas_without_value(area)
+                   if not any(o.region().contains(*rc) for o in owners)]
+        if missing:
+            raise _CannotEvaluate(missing_value_message(self.book.path.name, sheet, missing)
+                                  .removeprefix("xlbridge: "))
+        me.reads.append(area)
+        block = self.book.read_area(area)
+        for o in owners:
+            out = o.output_area()
+            for r in range(max(out.r1, area.r1), min(out.r2, area.r2) + 1):
+                for c in range(max(out.c1, area.c1), min(out.c2, area.c2) + 1):
+                    row = o.result[r - out.r1] if o.result else []
+                    v = row[c - out.c1] if c - out.c1 < len(row) else None
+                    block[r - area.r1][c - area.c1] = None if v == "" else v
+            arr = o.formula.array_ref
+            if arr is not None:  # cells of the old array range beyond the new result
+                for r in range(max(arr.r1, area.r1), min(arr.r2, area.r2) + 1):
+                    for c in range(max(arr.c1, area.c1), min(arr.c2, area.c2) + 1):
+                        if not out.contains(r, c):
+                            block[r - area.r1][c - area.c1] = None
+        return xlwings_shape(block)
+
+    def _spill_area(self, anchor: Area, me: XbCell) -> Area:
+        """The area of ``A2#``: the result of the XB_ cell at A2, or the array range of the
+        formula there (its saved values)."""
+        owner = self.by_anchor.get((anchor.sheet, anchor.r1, anchor.c1))
+        if owner is not None:
+            if owner is me:
+                raise _CannotEvaluate(f"{anchor.label()}# is the cell's own result")
+            if id(owner) not in self.done or not owner.ok:
+                raise _CannotEvaluate(f"{anchor.label()}# has no result "
+                                      f"({_first_line(owner) or 'not evaluated'})")
+            return owner.output_area()
+        f = self.formulas.get(anchor.sheet or "", {}).get((anchor.r1, anchor.c1))
+        if f is not None and f.array_ref is not None:
+            return f.array_ref
+        raise _CannotEvaluate(f"{anchor.label()}# refers to a cell that holds no spilled "
+                              "result")
+
+    def _arg(self, arg: Any, me: XbCell, areas: dict[int, Area]) -> Any:
+        if isinstance(arg, Missing):
+            return None
+        if isinstance(arg, Literal):
+            return arg.value
+        if isinstance(arg, ArrayConst):
+            return xlwings_shape([list(r) for r in arg.rows])
+        if isinstance(arg, Ref):
+            return self._read(areas[id(arg)], me)
+        if isinstance(arg, Spill):
+            return self._read(self._spill_area(areas[id(arg.anchor)], me), me)
+        if isinstance(arg, Call):
+            result = self._call(arg, me)
+            return xlwings_shape(result)
+        raise _CannotEvaluate(f"argument {arg!r} cannot be evaluated")  # pragma: no cover
+
+    def _call(self, call: Call, me: XbCell) -> list[list[Any]]:
+        fn = self.functions.get(call.name)
+        if fn is None:
+            known = ", ".join(sorted(self.functions))
+            raise _CannotEvaluate(
+                f"{call.name} is not a function of this xlbridge version (functions: {known})"
+            )
+        params = list(inspect.signature(fn).parameters.values())
+        required = [p for p in params if p.default is inspect.Parameter.empty]
+        if not (len(required) <= len(call.args) <= len(params)):
+            sig = ", ".join(p.name if p.default is inspect.Parameter.empty else f"[{p.name}]"
+                            for p in params)
+            raise _CannotEvaluate(
+                f"{call.name} takes ({sig}); the formula gives {len(call.args)} argument"
+                f"{'s' if len(call.args) != 1 else ''}"
+            )
+        refs = [a.anchor if isinstance(a, Spill) else a for a in call.args
+                if isinstance(a, (Ref, Spill))]
+        try:
+            # whole columns of one call keep equal heights, as in the spreadsheet
+            resolved = self.book.resolve_together([a.target for a in refs],
+                                                  default_sheet=me.sheet)
+        except (BookError, RefError) as exc:
+            raise _CannotEvaluate(str(exc)) from None
+        areas = {id(a): area for a, area in zip(refs, resolved)}
+        values = [self._arg(a, me, areas) for a in call.args]
+        result = fn(*values)
+        table = _as_table(result)
+        if call.single and not _is_message(table):
+            table = [[table[0][0]]]
+        return table
+
+    def dependencies(self) -> dict[int, set[int]]:
+        """For each cell (by index) the cells whose regions its arguments read."""
+        deps: dict[int, set[int]] = {}
+        for i, x in enumerate(self.cells):
+            areas = list(x.reads) or self._static_reads(x)
+            deps[i] = {j for j, o in enumerate(self.cells)
+                       if j != i and any(o.region().intersects(a) for a in areas)}
+        return deps
+
+    def _static_reads(self, x: XbCell) -> list[Area]:
+        out: list[Area] = []
+
+        def walk(call: Call) -> None:
+            for a in call.args:
+                if isinstance(a, (Ref, Spill)):
+                    target = a.anchor.target if isinstance(a, Spill) else a.target
+                    try:
+                        out.append(self.book.resolve(target, default_sheet=x.sheet))
+                    except (BookError, RefError):
+                        pass
+                elif isinstance(a, Call):
+                    walk(a)
+
+        if x.call is not None:
+            walk(x.call)
+        return out
+
+    def run(self, progress: Progress | None = None) -> None:
+        for x in self.cells:
+            try:
+                x.call = parse_xb_formula(x.formula.text)
+            except Unsupported as exc:
+                x.message = "xlbridge: " + str(exc)
+        # Result shapes are known only after evaluation, so the order is found by rounds:
+        # evaluate in the order the known regions give, then recompute the dependencies
+        # with the actual result areas; stop when they no longer change.
+        edges: dict[int, set[int]] = {}
+        for round_ in range(6):
+            deps = self.dependencies()
+            merged = {i: deps.get(i, set()) | edges.get(i, set()) for i in range(len(self.cells))}
+            if round_ > 0 and merged == edges:
+                break
+            edges = merged
+            order, cyclic = _topo(edges)
+            self.done.clear()
+            for x in self.cells:
+                x.reads = []
+                if x.call is not None:
+                    x.result = None
+                    x.message = None
+            n = len(order) + len(cyclic)
+            for k, i in enumerate(order + cyclic):
+                x = self.cells[i]
+                if progress is not None and round_ == 0:
+                    progress(k, n, x.label)
+                if x.call is not None:
+                    if i in cyclic:
+                        x.message = ("xlbridge: circular reference between XB_ cells ("
+                                     + ", ".join(self.cells[j].label for j in cyclic)
+                                     + "); break the cycle")
+                    else:
+                        self._evaluate(x)
+                self.done.add(id(x))
+            if progress is not None and round_ == 0:
+                progress(n, n, "")
+        else:  # pragma: no cover - needs result shapes that change every round
+            for x in self.cells:
+                x.result = None
+                x.message = "xlbridge: the XB_ cells' dependencies did not settle; simplify them"
+            return
+        self._check_ordinary_formulas()
+
+    def _check_ordinary_formulas(self) -> None:
+        """A result that read an ordinary formula fed by an XB_ result is not trusted: the
+        runner does not recompute ordinary formulas, so that saved value may be stale."""
+        self._taint_memo.clear()
+        for x in self.cells:
+            if not x.ok:
+                continue
+            for area in x.reads:
+                owners = self._xb_regions_hit(area)
+                for f in self._formulas_in(area):
+                    if calls_xb(f.text) or any(o.region().contains(f.row, f.col)
+                                               for o in owners):
+                        continue
+                    dep = self._formula_depends_on_xb(f)
+                    if dep:
+                        x.result = None
+                        x.message = (
+                            f"xlbridge: {Area(f.sheet, f.row, f.col, f.row, f.col).label()} is "
+                            f"an ordinary formula that reads the result of {dep}; the runner "
+                            "does not recompute ordinary formulas, so its saved value may be "
+                            "out of date. Refer to the XB_ result directly"
+                        )
+                        break
+                if not x.ok:
+                    break
+
+    def _evaluate(self, x: XbCell) -> None:
+        assert x.call is not None
+        try:
+            x.result = self._call(x.call, x)
+            x.message = _first_line(x) if _is_message(x.result) else None
+        except _CannotEvaluate as exc:
+            x.result = None
+            x.message = "xlbridge: " + str(exc)
+        except Exception as exc:  # a worksheet function never raises; keep the cell honest
+            x.result = None
+            x.message = f"xlbridge: internal error ({type(exc).__name__}: {exc})"
+
+
+def _first_line(x: XbCell) -> str:
+    if x.result is not None and _is_message(x.result):
+        return str(x.result[0][0])
+    return x.message or ""
+
+
+def _as_table(result: Any) -> list[list[Any]]:
+    if isinstance(result, (list, tuple)):
+        if not result:
+            return [[""]]
+        if all(isinstance(r, (list, tuple)) for r in result):
+            return [list(r) for r in result]
+        return [[v] for v in result]
+    return [[result]]
+
+
+def _topo(edges: dict[int, set[int]]) -> tuple[list[int], list[int]]:
+    """Order with dependencies first (stable by position); the rest are in cycles."""
+    remaining = {i: set(d) for i, d in edges.items()}
+    order: list[int] = []
+    while True:
+        ready = sorted(i for i, d in remaining.items() if not d)
+        if not ready:
+            break
+        for i in ready:
+            order.append(i)
+            del remaining[i]
+        for d in remaining.values():
+            d.difference_update(ready)
+    # cells that merely depend on a cycle are not in it, but cannot be ordered either
+    return order, sorted(remaining)
+
+
+def _worksheet_functions() -> dict[str, Callable[..., Any]]:
+    from xlbridge import worksheet
+
+    return dict(worksheet.FUNCTIONS)
+
+
+def evaluate_book(book: Book, workbook: Any = None, progress: Progress | None = None,
+                  functions: dict[str, Callable[..., Any]] | None = None) -> Evaluation:
+    """Find and evaluate every XB_ formula of ``book`` (``workbook``: an open openpyxl copy
+    whose formulas to use; by default they are read from the file)."""
+    if book.kind == "csv":
+        raise BookError(f"{book.path.name} is a CSV file; it holds no formulas to evaluate "
+                        "(give the .xlsx or .xlsm workbook)")
+    formulas = formula_index(book, workbook)
+    ev = _Evaluator(book, formulas, functions or _worksheet_functions())
+    ev.run(progress)
+    return Evaluation(book, ev.cells, formulas)
+
+
+# --- writing results into a copy ---------------------------------------------------------
+
+
+@dataclass
+class WriteReport:
+    written: int = 0
+    conflicts: list[str] = field(default_factory=list)
+    plain_multi: int = 0  # plain (non-array) formulas whose result spans several cells
+
+
+def write_results(evaluation: Evaluation, workbook: Any) -> WriteReport:
+    """Replace each XB_ formula of the openpyxl ``workbook`` by its values (or message)."""
+    from xlbridge.book.writer import set_value
+
+    rep = WriteReport()
+    cells = evaluation.cells
+    written: list[XbCell] = []
+    for x in cells:
+        ws = workbook[x.sheet]
+        arr = x.formula.array_ref
+        if arr is not None:
+            for r in range(arr.r1, arr.r2 + 1):
+                for c in range(arr.c1, arr.c2 + 1):
+                    ws.cell(r, c).value = None
+        anchor = ws.cell(x.formula.row, x.formula.col)
+        if not x.ok:
+            set_value(anchor, x.message or "xlbridge: no result")
+            continue
+        assert x.result is not None
+        out = x.output_area()
+        cell = _blocked(evaluation, x, out)
+        blocked = f"{cell} is not empty" if cell else None
+        if blocked is None:
+            clash = next((o for o in written if o.output_area().intersects(out)), None)
+            if clash is not None:
+                blocked = f"it overlaps the result of {clash.label}"
+        if blocked:
+            msg = (f"xlbridge: the result needs {out.cells_text()} but {blocked} (a "
+                   "spreadsheet shows #SPILL!); clear those cells or move the formula")
+            set_value(anchor, msg)
+            rep.conflicts.append(f"{x.label}: {msg}")
+            x.message = msg
+            x.result = None
+            continue
+        for i, row in enumerate(x.result):
+            for j, v in enumerate(row):
+                set_value(ws.cell(out.r1 + i, out.c1 + j), v)
+        if arr is None and (out.n_rows > 1 or out.n_cols > 1):
+            rep.plain_multi += 1
+        rep.written += 1
+        written.append(x)
+    return rep
+
+
+def _blocked(evaluation: Evaluation, x: XbCell, out: Area) -> str | None:
+    """First cell of ``out`` holding data or a formula that is not this cell's own."""
+    book = evaluation.book
+    formulas = evaluation.formulas.get(x.sheet, {})
+    arr = x.formula.array_ref
+    block = book.read_area(out)
+    for i in range(out.n_rows):
+        for j in range(out.n_cols):
+            r, c = out.r1 + i, out.c1 + j
+            if (r, c) == (x.formula.row, x.formula.col) or (arr and arr.contains(r, c)):
+                continue
+            other = next((o for o in evaluation.cells if o is not x
+                          and o.formula.array_ref and o.formula.array_ref.contains(r, c)
+                          and o.sheet == x.sheet), None)
+            if (r, c) in formulas or block[i][j] is not None or other is not None:
+                return Area(x.sheet, r, c, r, c).cells_text()
+    return None
