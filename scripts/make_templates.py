@@ -62,8 +62,9 @@ class Scenario:
     how_to: list[str] = field(default_factory=list)
 
 
-def _round(v: np.ndarray, step: float) -> list[float]:
-    return [float(round(a / step) * step) for a in v]
+def _round(v: np.ndarray, digits: int) -> list[float]:
+    """Values as a person would type them: the double nearest each rounded decimal."""
+    return [float(round(float(a), digits)) for a in v]
 
 
 def equipment_cost() -> Scenario:
@@ -76,7 +77,7 @@ def equipment_cost() -> Scenario:
     mean = 12 + 1.15 * cap - 0.0011 * cap**2
     cost = mean * (1 + rng.normal(0, 0.06, n))
     jobs = [f"J-{1001 + i}" for i in range(n)]
-    rows = [[j, c, v] for j, c, v in zip(jobs, _round(cap, 0.5), _round(cost, 0.1))]
+    rows = [[j, c, v] for j, c, v in zip(jobs, _round(cap, 1), _round(cost, 1))]
     rows[17][2] = None  # a job not yet invoiced: left out of the fit and counted
     return Scenario(
         file="equipment_cost.xlsx",
@@ -111,7 +112,7 @@ def margin_surface() -> Scenario:
     margin = (-50 + 2.2 * price + 3.1 * rebate - 0.0095 * price**2 - 0.12 * rebate**2
               + 0.004 * price * rebate + rng.normal(0, 3, n))
     rows = [[f"M-{i + 1:02d}", p, r, m] for i, (p, r, m) in
-            enumerate(zip(_round(price, 0.5), _round(rebate, 0.5), _round(margin, 0.1)))]
+            enumerate(zip(_round(price, 2), _round(rebate, 1), _round(margin, 1)))]
     return Scenario(
         file="margin_surface.xlsx",
         title="Monthly gross margin of a spare-parts kit against list price and dealer rebate",

@@ -43,3 +43,24 @@ def test_template_has_the_expected_sheets(name):
     assert (conf["A1"].value, conf["B1"].value) == ("UDF Modules", "xlbridge.worksheet")
     notes = " ".join(str(c.value) for c in wb["Notes"]["A"] if c.value)
     assert "Invented data" in notes and "licensed professional" in notes
+
+
+@pytest.mark.parametrize("name", ["equipment_cost.xlsx", "margin_surface.xlsx"])
+def test_recalc_fills_every_model_cell_without_error(name, tmp_path, capsys):
+    """Headless recalc of each template: every XB_ cell evaluated, no message cells; the
+    copy read back with python-calamine (an independent reader)."""
+    import python_calamine
+
+    from xlbridge.cli import main
+
+    out = tmp_path / f"calc-{name}"
+    code = main(["recalc", str(REPO / "workbook_templates" / name), "--out", str(out)])
+    text = capsys.readouterr().out
+    assert code == 0, text
+    assert "errors: 0" in text
+    wb = python_calamine.CalamineWorkbook.from_path(str(out))
+    values = [v for sheet in wb.sheet_names for row in wb.get_sheet_by_name(sheet).to_python()
+              for v in row]
+    assert not any(isinstance(v, str) and v.startswith("xlbridge:") for v in values)
+    assert any(v == "recommended" for v in values) or name != "equipment_cost.xlsx"
+    assert any(v == "maximum" for v in values) or name != "margin_surface.xlsx"

@@ -1,23 +1,27 @@
-"""xlbridge: accurate polynomial and second-order regression models for workbooks."""
+"""xlbridge: accurate polynomial and second-order regression models for workbooks.
+
+The public API lives in :mod:`xlbridge.engine`; it is imported on first use, so that
+``xlbridge --help`` and other commands that never fit start quickly.
+"""
+
+from __future__ import annotations
 
 __version__ = "0.1.0"
-
-from .engine import (  # noqa: E402
-    CenteredForm,
-    Coefficient,
-    FitResult,
-    FitStats,
-    ModelError,
-    ModelSpec,
-    Prediction,
-    checks,
-    fit,
-    optimum,
-    row_diagnostics,
-    scan_degrees,
-    slopes,
-)
 
 __all__ = ["__version__", "fit", "FitResult", "FitStats", "Coefficient", "CenteredForm",
            "Prediction", "ModelError", "ModelSpec", "checks", "row_diagnostics", "scan_degrees",
            "optimum", "slopes"]
+
+
+def __getattr__(name: str):
+    if name in __all__:
+        from . import engine
+
+        value = getattr(engine, name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'xlbridge' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

@@ -390,6 +390,7 @@ class FitInput:
     options: Options
     drops: tuple[tuple[str, int], ...]
     row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (see _REASON)
+    weights: np.ndarray | None = None
 
     @property
     def n_dropped(self) -> int:
@@ -398,12 +399,14 @@ class FitInput:
     def key(self) -> str:
         """Content hash of everything that changes the fit."""
         return content_key("fit", self.y, self.x, self.names, self.response, self.model,
-                           sorted(self.options.fit_kwargs().items()))
+                           sorted(self.options.fit_kwargs().items()), self.weights)
 
 
 def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
-                ints_are_errors: bool = True) -> FitInput:
-    """Check and clean y, x, model and options; raises CellError / OptionsError."""
+                ints_are_errors: bool = True, weights: Any = None) -> FitInput:
+    """Check and clean y, x, model, options (and optional weight cells, one per row);
+    raises CellError / OptionsError. Trailing rows blank in y and every x column (a
+    whole-column selection) are not data and are not counted as dropped."""
     opts = options_value(options, ints_are_errors=ints_are_errors)
     mod = model_value(model, ints_are_errors=ints_are_errors)
     y_grid = _grid(y, "y").transposed_line()  # a row of y values reads as a column
@@ -431,16 +434,34 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
         if not (xc.codes[:, j] == OK).any():
             label = f" ({xc.names[j]})" if xc.names else ""
             raise CellError(f"x column {j + 1}{label} has no numbers")
-    row_codes = _row_codes(yc.codes, xc.codes)
+    blank = (yc.codes[:, 0] == BLANK) & (xc.codes == BLANK).all(axis=1)
+    n = len(blank) - int(np.argmax(~blank[::-1])) if not blank.all() else 0
+    yv, xv = yc.values[:n, 0], xc.values[:n]
+    blocks = [yc.codes[:n], xc.codes[:n]]
+    wv = None
+    if weights is not None:
+        wc = clean_cells(_grid(weights, "weights").transposed_line(), "weights",
+                         names=opts.names, ints_are_errors=ints_are_errors)
+        if wc.n_cols != 1:
+            raise CellError(f"weights must be one column; got {wc.n_cols} columns")
+        if wc.n_rows < n or np.any(wc.codes[n:] != BLANK):
+            raise CellError(f"weights has {wc.n_rows} rows but y has {n}; select ranges of "
+                            "the same height")
+        wv = wc.values[:n, 0]
+        blocks.append(wc.codes[:n])
+    row_codes = _row_codes(*blocks)
+    if wv is not None:
+        wv = np.where(row_codes == OK, wv, np.nan)
     response = yc.names[0] if yc.names else None
-    return FitInput(yc.values[:, 0], xc.values, xc.names, response, mod, opts,
-                    _drop_summary(row_codes), row_codes)
+    return FitInput(yv, xv, xc.names, response, mod, opts, _drop_summary(row_codes),
+                    row_codes, wv)
 
 
 def _fit_now(inp: FitInput) -> FitResult:
     x = inp.x[:, 0] if inp.x.shape[1] == 1 else inp.x
     try:
-        res = fit(inp.y, x, inp.model, names=inp.names, **inp.options.fit_kwargs())
+        res = fit(inp.y, x, inp.model, names=inp.names, weights=inp.weights,
+                  **inp.options.fit_kwargs())
     except ModelError as exc:
         text = str(exc)
         if inp.drops and re.search(r"\bfound \d+", text):

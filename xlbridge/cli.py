@@ -63,6 +63,8 @@ def add_data_options(p: argparse.ArgumentParser, *, model_required: bool = True)
                         "e.g. 'level=0.9; intercept=no'")
     p.add_argument("--sheet", default=None, metavar="NAME",
                    help="sheet for references without one (default: the first sheet)")
+    p.add_argument("--weights", default=None, metavar="REF",
+                   help="cells of positive weights, one per row of y (weighted least squares)")
 
 
 def add_output_options(p: argparse.ArgumentParser, formats: Sequence[str],
@@ -233,19 +235,24 @@ class _Fitted:
     result: Any
 
 
-def _fit_from_args(args: argparse.Namespace) -> _Fitted:
+def _fit_from_args(args: argparse.Namespace, model: Any = None) -> _Fitted:
     from xlbridge import cells
     from xlbridge.options import OptionsError
 
     book = _open(args.book)
     sheet = book.sheet_name(args.sheet) if args.sheet else None
-    ya, xa = _resolve(book, [("y", args.y), ("x", args.x)], sheet)
-    y_area, y = _read_ref(book, args.y, "y", ya)
-    x_area, x = _read_ref(book, args.x, "x", xa)
+    refs = [("y", args.y), ("x", args.x)]
+    if getattr(args, "weights", None):
+        refs.append(("weights", args.weights))
+    areas = _resolve(book, refs, sheet)
+    y_area, y = _read_ref(book, args.y, "y", areas[0])
+    x_area, x = _read_ref(book, args.x, "x", areas[1])
+    w = _read_ref(book, args.weights, "weights", areas[2])[1] if len(areas) > 2 else None
     from xlbridge.engine import ModelError, parse_model
 
     try:
-        inp = cells.prepare_fit(y, x, args.model, args.options)
+        inp = cells.prepare_fit(y, x, args.model if model is None else model, args.options,
+                                weights=w)
         # a model text that cannot be read is a usage error, not a failed fit
         parse_model(inp.model, inp.x.shape[1], inp.names,
                     intercept=bool(inp.options.fit_kwargs().get("intercept", True)))
@@ -529,6 +536,209 @@ def _run_verify(args: argparse.Namespace) -> int:
     return EXIT_OK if drift.ok else EXIT_FAIL
 
 
+# --- degrees / checks / rows / optimum / slope -------------------------------------------------
+
+
+def _emit_tables(args: argparse.Namespace, f: _Fitted, command: str, table: list[list[Any]],
+                 doc: Any, extra: str = "") -> int:
+    """Show one result table (header row first) as table, json, csv or an xlsx copy."""
+    shown = table if f.inp.options.header else table[1:]
+    src = f"{f.y_area.label()} on {f.x_area.label()}"
+    if args.format == "json":
+        emit(_json_text(doc), args.out, args.force, [f.book.path])
+    elif args.format == "csv":
+        emit(_csv_text([shown]), args.out, args.force, [f.book.path])
+    elif args.format == "xlsx":
+        _xlsx_copy(f.book, args.out, args.force, f"xlbridge {command}",
+                   [(f"xlbridge {command} of {src}{extra}", shown)])
+    else:
+        body = [r for r in table if not (len(r) > 1 and str(r[0]).startswith("note:"))]
+        notes = [r[0] for r in table if str(r[0]).startswith("note:")]
+        head = f"xlbridge {command}: {src} in {f.book.path.name}{extra}\n\n"
+        emit(head + render_table(body) + "\n" + "".join(f"{n}\n" for n in notes), args.out,
+             args.force, [f.book.path])
+    return EXIT_OK
+
+
+def _model_failure(fn: Callable[[], Any]) -> Any:
+    from xlbridge.cells import CellError
+    from xlbridge.engine import ModelError
+
+    try:
+        return fn()
+    except (CellError, ModelError) as exc:
+        raise Failure(str(exc)) from None
+
+
+def _configure_degrees(p: argparse.ArgumentParser) -> None:
+    add_data_options(p, model_required=False)
+    p.add_argument("--max-degree", type=int, default=5, metavar="N",
+                   help="highest degree to try, 1-10 (default 5)")
+    add_output_options(p, ("table", "json", "csv", "xlsx"))
+
+
+def _run_degrees(args: argparse.Namespace) -> int:
+    from xlbridge.engine import scan_degrees
+    from xlbridge.model_cells import degrees_table
+
+    f = _fit_from_args(args, model=1)
+    inp = f.inp
+    opts = inp.options
+    scan = _model_failure(lambda: scan_degrees(
+        inp.y, inp.x[:, 0] if inp.x.shape[1] == 1 else inp.x, args.max_degree,
+        folds=opts.folds, weights=inp.weights, **opts.fit_kwargs()))
+    table = degrees_table(scan, opts.replace(header=True))
+    return _emit_tables(args, f, "degrees", table, scan.to_dict(),
+                        f", degrees 1-{args.max_degree}")
+
+
+def _configure_model_table(p: argparse.ArgumentParser) -> None:
+    add_data_options(p)
+    add_output_options(p, ("table", "json", "csv", "xlsx"))
+
+
+def _run_checks(args: argparse.Namespace) -> int:
+    from xlbridge.engine import checks
+    from xlbridge.model_cells import checks_table
+
+    f = _fit_from_args(args)
+    table = checks_table(f.result, f.inp.options.replace(header=True))
+    doc = {"model": f.result.to_dict()["model"],
+           "checks": [c.to_dict() for c in checks(f.result)]}
+    code = _emit_tables(args, f, "checks", table, doc, f", model {f.result.model_text}")
+    return code
+
+
+def _run_rows(args: argparse.Namespace) -> int:
+    from xlbridge.engine import row_diagnostics
+    from xlbridge.model_cells import rows_table
+
+    f = _fit_from_args(args)
+    table = rows_table(f.result, f.inp.options.replace(header=True))
+    doc = {"model": f.result.to_dict()["model"], "rows": row_diagnostics(f.result).to_dict()}
+    return _emit_tables(args, f, "rows", table, doc, f", model {f.result.model_text}")
+
+
+def _run_optimum(args: argparse.Namespace) -> int:
+    from xlbridge.engine import optimum
+    from xlbridge.model_cells import optimum_table
+
+    f = _fit_from_args(args)
+    opt = _model_failure(lambda: optimum(f.result))
+    table = optimum_table(f.result, f.inp.options.replace(header=True))
+    return _emit_tables(args, f, "optimum", table, opt.to_dict(),
+                        f", model {f.result.model_text}")
+
+
+def _configure_slope(p: argparse.ArgumentParser) -> None:
+    add_data_options(p)
+    p.add_argument("--at-x", required=True, metavar="REF",
+                   help="cells of the points to take the slope at (one row per point)")
+    add_output_options(p, ("table", "json", "csv", "xlsx"))
+
+
+def _run_slope(args: argparse.Namespace) -> int:
+    from xlbridge import cells
+    from xlbridge.engine import slopes
+    from xlbridge.model_cells import slope_table
+
+    f = _fit_from_args(args)
+    sheet = f.book.sheet_name(args.sheet) if args.sheet else None
+    (area,) = _resolve(f.book, [("at-x", args.at_x)], sheet)
+    at_area, at = _read_ref(f.book, args.at_x, "at-x", area)
+    opts = f.inp.options
+    try:
+        table = slope_table(f.result, at, opts.replace(header=True))
+        pts, good, _ = cells.new_points(f.result, at, opts)
+    except cells.CellError as exc:
+        raise UsageError(f"--at-x {args.at_x}: {exc}") from None
+    doc = slopes(f.result, pts, opts.level).to_dict() if good.any() else {}
+    return _emit_tables(args, f, "slope", table, doc, f", at {at_area.label()}")
+
+
+# --- plot / report / demo ----------------------------------------------------------------------
+
+
+PLOT_KINDS = ("curve", "residuals", "quantiles", "influence", "degrees", "contour")
+
+
+def _configure_plot(p: argparse.ArgumentParser) -> None:
+    add_data_options(p)
+    p.add_argument("--out", type=Path, required=True, metavar="DIR",
+                   help="folder for the figures (created if missing)")
+    p.add_argument("--kind", action="append", choices=PLOT_KINDS,
+                   help="which figure (repeatable; default: all that apply to the model)")
+    p.add_argument("--svg", action="store_true", help="write SVG as well as PNG")
+    p.add_argument("--max-degree", type=int, default=5, metavar="N",
+                   help="highest degree for the degree-scan figure (default 5)")
+    p.add_argument("--force", action="store_true", help="replace figures that exist")
+
+
+def _run_plot(args: argparse.Namespace) -> int:
+    from xlbridge.engine import scan_degrees
+
+    f = _fit_from_args(args)
+    kinds = args.kind
+    scan = None
+    if f.result.spec.k == 1 and (not kinds or "degrees" in kinds):
+        inp = f.inp
+        scan = _model_failure(lambda: scan_degrees(
+            inp.y, inp.x[:, 0], args.max_degree, folds=inp.options.folds,
+            weights=inp.weights, **inp.options.fit_kwargs()))
+    if kinds and "contour" in kinds and f.result.spec.k < 2:
+        raise UsageError("--kind contour needs a model with two or more predictors")
+    if kinds and "curve" in kinds and f.result.spec.k != 1:
+        raise UsageError("--kind curve needs a model with one predictor; use contour")
+    from xlbridge.plots import write_figures
+
+    for path in write_figures(f.result, args.out, kinds, svg=args.svg, force=args.force,
+                              scan=scan):
+        print(f"wrote {path}")
+    return EXIT_OK
+
+
+def _configure_report(p: argparse.ArgumentParser) -> None:
+    add_data_options(p)
+    p.add_argument("--out", type=Path, required=True, metavar="FILE.html",
+                   help="the report to write")
+    p.add_argument("--max-degree", type=int, default=5, metavar="N",
+                   help="highest degree of the degree scan (default 5; one predictor)")
+    p.add_argument("--force", action="store_true", help="replace FILE if it exists")
+
+
+def _run_report(args: argparse.Namespace) -> int:
+    from xlbridge.engine import scan_degrees
+    from xlbridge.report import Source, build_report
+
+    if args.out.suffix.lower() not in (".html", ".htm"):
+        raise UsageError(f"--out {args.out.name}: the report is an .html file")
+    f = _fit_from_args(args)
+    scan = None
+    if f.result.spec.k == 1:
+        inp = f.inp
+        scan = _model_failure(lambda: scan_degrees(
+            inp.y, inp.x[:, 0], args.max_degree, folds=inp.options.folds,
+            weights=inp.weights, **inp.options.fit_kwargs()))
+    src = Source(file=f.book.path.name, y_ref=f.y_area.label(), x_ref=f.x_area.label(),
+                 options=f.inp.options.to_text())
+    emit(build_report(f.result, scan=scan, source=src), args.out, args.force, [f.book.path])
+    return EXIT_OK
+
+
+def _configure_demo(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", type=Path, default=Path("xlbridge-demo"), metavar="DIR",
+                   help="folder to write into (default ./xlbridge-demo)")
+    p.add_argument("--force", action="store_true", help="replace files of an earlier demo")
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    from xlbridge.demo import run_demo
+
+    summary = run_demo(args.out, force=args.force)
+    print(summary)
+    return EXIT_OK
+
+
 # --- the command table ------------------------------------------------------------------------
 
 COMMANDS: list[Command] = [
@@ -549,9 +759,32 @@ COMMANDS: list[Command] = [
     Command("verify", "recompute the XB_ results and compare them with a pin file",
             "xlbridge verify estimate.xlsx --pins estimate.pins.json --rtol 1e-9",
             _configure_verify, _run_verify),
-    # Later commands are added here, in the same form:
-    #   degrees, checks, rows, optimum, slope (diagnostics); demo, plot, report (ready-made
-    #   workbooks and reports); groups (one model per group).
+    Command("degrees", "fit degrees 1..N, cross-validate, and recommend one",
+            "xlbridge degrees costs.xlsx --y Data!C:C --x Data!B:B --max-degree 5",
+            _configure_degrees, _run_degrees),
+    Command("checks", "check the regression assumptions (verdicts ok / watch / problem)",
+            "xlbridge checks costs.xlsx --y Data!C:C --x Data!B:B --model 2",
+            _configure_model_table, _run_checks),
+    Command("rows", "per-row residuals, leverage and Cook's distance, aligned with the data",
+            "xlbridge rows costs.xlsx --y Data!C:C --x Data!B:B --model 2 --format csv",
+            _configure_model_table, _run_rows),
+    Command("optimum", "where the fitted curve or surface turns, with intervals",
+            "xlbridge optimum margin.xlsx --y Data!D:D --x Data!B:C --model surface",
+            _configure_model_table, _run_optimum),
+    Command("slope", "marginal effect dy/dx at given points, with intervals",
+            "xlbridge slope costs.xlsx --y Data!C:C --x Data!B:B --model 2 "
+            "--at-x Model!A71:A76",
+            _configure_slope, _run_slope),
+    Command("plot", "write the figures of a fit (PNG, optionally SVG)",
+            "xlbridge plot costs.xlsx --y Data!C:C --x Data!B:B --model 2 --out figures",
+            _configure_plot, _run_plot),
+    Command("report", "write a self-contained HTML report of a model",
+            "xlbridge report costs.xlsx --y Data!C:C --x Data!B:B --model 2 "
+            "--out model.html",
+            _configure_report, _run_report),
+    Command("demo", "run the bundled example workbooks end to end (recalc, figures, reports)",
+            "xlbridge demo --out xlbridge-demo",
+            _configure_demo, _run_demo),
 ]
 
 

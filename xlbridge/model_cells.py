@@ -51,9 +51,9 @@ def _max_degree(value: Any) -> int:
 
 
 def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
-               ints_are_errors: bool = True) -> tuple[DegreeScan, Options]:
+               ints_are_errors: bool = True, weights: Any = None) -> tuple[DegreeScan, Options]:
     """Degree scan of raw cells (cached by content)."""
-    inp = prepare_fit(y, x, 1, options, ints_are_errors=ints_are_errors)
+    inp = prepare_fit(y, x, 1, options, ints_are_errors=ints_are_errors, weights=weights)
     if inp.x.shape[1] != 1:
         raise CellError(f"the degree scan needs one x column; x has {inp.x.shape[1]}")
     top = _max_degree(max_degree)
@@ -62,7 +62,8 @@ def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
 
     def compute() -> DegreeScan:
         try:
-            return scan_degrees(inp.y, inp.x[:, 0], top, folds=opts.folds, **opts.fit_kwargs())
+            return scan_degrees(inp.y, inp.x[:, 0], top, folds=opts.folds, weights=inp.weights,
+                                **opts.fit_kwargs())
         except ModelError as exc:
             raise CellError(str(exc)) from None
 

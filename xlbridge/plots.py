@@ -109,7 +109,7 @@ def influence(res: FitResult):
     ax.set_ylim(-ymax, ymax)
     ax.set_xlim(0, hmax)
     ax.axvline(2 * p / res.stats.n_used, color="grey", ls=":", lw=1, label="leverage 2p/n")
-    rows = np.flatnonzero(res.used)[ok] + 1
+    rows = np.flatnonzero(ok) + 1  # input row numbers
     for i in np.argsort(-np.abs(t))[:3]:
         ax.annotate(f"row {rows[i]}", (h[i], t[i]), fontsize=7, xytext=(4, 4),
                     textcoords="offset points")
@@ -180,13 +180,58 @@ def contour(res: FitResult, stationary=None, points: int = 120):
     return fig
 
 
-def save(fig, path: str | Path) -> Path:
-    """Write a figure as PNG or SVG (by the file's suffix)."""
+def save(fig, path: str | Path, fmt: str | None = None) -> Path:
+    """Write a figure as PNG or SVG (``fmt``, or the file's suffix)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     path = Path(path)
-    if path.suffix.lower() not in (".png", ".svg"):
-        raise ValueError(f"plots are written as .png or .svg, not {path.suffix!r}")
+    fmt = (fmt or path.suffix.lstrip(".")).lower()
+    if fmt not in ("png", "svg"):
+        raise ValueError(f"plots are written as png or svg, not {fmt!r}")
     FigureCanvasAgg(fig)
-    fig.savefig(path, dpi=DPI)
+    fig.savefig(path, dpi=DPI, format=fmt)
     return path
+
+
+KINDS = ("curve", "residuals", "quantiles", "influence", "degrees", "contour")
+
+
+def write_figures(res: FitResult, out: str | Path, kinds=None, *, svg: bool = False,
+                  force: bool = False, scan: DegreeScan | None = None,
+                  prefix: str = "") -> list[Path]:
+    """Write the figures of one fit into folder ``out`` (each file atomically; an existing
+    file only with ``force``); default: every kind that applies. Returns the paths."""
+    from .book.safety import write_atomically
+    from .engine import optimum
+
+    one = res.spec.k == 1
+    wanted = list(kinds) if kinds else [
+        k for k in KINDS if (k != "contour" if one else k not in ("curve", "degrees"))]
+    if scan is None and "degrees" in wanted:
+        wanted.remove("degrees")
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    written = []
+    for kind in wanted:
+        if kind == "curve":
+            fig = curve(res)
+        elif kind == "residuals":
+            fig = residuals(res)
+        elif kind == "quantiles":
+            fig = normal_quantiles(res)
+        elif kind == "influence":
+            fig = influence(res)
+        elif kind == "degrees":
+            fig = degree_scan(scan)
+        else:
+            try:
+                opt = optimum(res)
+            except ModelError:
+                opt = None
+            fig = contour(res, opt)
+        for fmt in ("png", "svg") if svg else ("png",):
+            path = out / f"{prefix}{kind}.{fmt}"
+            write_atomically(path, lambda tmp, fig=fig, fmt=fmt: save(fig, tmp, fmt),
+                             force=force)
+            written.append(path)
+    return written

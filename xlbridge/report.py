@@ -37,6 +37,7 @@ h1 { font-size: 1.6rem; border-bottom: 2px solid #1f4e79; padding-bottom: .3rem;
 h2 { font-size: 1.2rem; color: #1f4e79; margin-top: 2rem; border-bottom: 1px solid #ccd; }
 table { border-collapse: collapse; margin: .5rem 0; font-size: .85rem; }
 th, td { border: 1px solid #ccd; padding: .2rem .5rem; text-align: right; }
+td { white-space: nowrap; } td.t { white-space: normal; }
 th { background: #eef2f7; }
 td.t, th.t { text-align: left; }
 code.eq { display: block; white-space: pre-wrap; word-break: break-all; background: #f6f6f6;
