@@ -10,7 +10,6 @@ from __future__ import annotations
 import datetime as dt
 import json
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -21,9 +20,15 @@ from xlbridge.cache import FIT_CACHE
 from xlbridge.cells import CellError, clean_cells, fit_cells, model_value, prepare_fit
 from xlbridge.options import Options, OptionsError
 
-NIST = Path(__file__).resolve().parents[2] / "shared" / "reference" / "nist_strd"
+from .conftest import nist_set
+
 NA = -2146826246  # #N/A as COM hands it without err_to_str
 SPILL = -2146826243  # a newer error value: a plain negative int
+
+
+def _nist(name: str) -> dict:
+    """A NIST StRD set as plain floats (skips the test when the folder is absent)."""
+    return json.loads(json.dumps(nist_set(name), default=float))
 
 
 def lstsq_poly(x, y, degree, intercept=True):
@@ -201,7 +206,7 @@ def test_a_row_of_y_and_a_row_of_x():
 
 
 def test_options_reach_the_engine():
-    data = json.loads((NIST / "NoInt1.json").read_text())
+    data = _nist("NoInt1")
     y, x = [float(v) for v in data["y"]], [float(v) for v in data["x"]]
     res, opts = fit_cells(y, x, 1.0, "intercept=no; level=0.9")
     cert = data["certified"]
@@ -212,7 +217,7 @@ def test_options_reach_the_engine():
 
 
 def test_nist_pontius_through_cells_with_a_header():
-    data = json.loads((NIST / "Pontius.json").read_text())
+    data = _nist("Pontius")
     y = [["y"]] + [[v] for v in data["y"]]
     x = [["load"]] + [[float(v)] for v in data["x"]]
     table = cells.coefs_cells(y, x, 2.0)
@@ -280,7 +285,7 @@ def test_coef_table_layout_and_header_option():
 
 
 def test_exact_fit_blanks_infinite_values_and_says_why():
-    data = json.loads((NIST / "Wampler1.json").read_text())
+    data = _nist("Wampler1")
     # NIST StRD, Linear Least Squares Regression, Wampler1: y is exactly a quintic
     y, x = [float(v) for v in data["y"]], [float(v) for v in data["x"]]
     coefs = cells.coefs_cells(y, x, 5.0)

@@ -136,3 +136,38 @@ def test_any_cells_give_a_table_or_a_message(pairs, name):
     if len(t) == 1 and width == 1:
         assert str(t[0][0]).startswith("xlbridge: ")
         assert "internal error" not in t[0][0]
+
+
+class _FakeRange:
+    """Stands in for the xlwings Range that xlwings passes as ``caller`` on the desktop."""
+
+    def __init__(self):
+        self.added = []
+        self.address = "$H$2"
+        self.left, self.top = 400.0, 20.0
+        self.sheet = self
+
+    @property
+    def pictures(self):
+        return self
+
+    def offset(self, row_offset=0, column_offset=0):
+        return self
+
+    def add(self, fig, **kw):
+        self.added.append((fig, kw))
+
+
+def test_plot_places_a_figure_beside_the_caller():
+    x, y = _data(4)
+    Y, X = _cells(x, y)
+    caller = _FakeRange()
+    t = ws.XB_PLOT(Y, X, 2.0, "curve", None, caller)
+    assert t == [["cost against size"]]
+    (fig, kw), = caller.added
+    assert kw["update"] is True and kw["name"] == "xlbridge curve $H$2"
+    assert fig.axes[0].get_xlabel() == "size"
+    headless = ws.XB_PLOT(Y, X, 2.0, "residuals")
+    assert "desktop only" in headless[0][0]
+    bad = ws.XB_PLOT(Y, X, 2.0, "pie")
+    assert bad[0][0].startswith("xlbridge: kind must be one of")

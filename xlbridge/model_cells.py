@@ -191,3 +191,49 @@ def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None, *,
                 ints_are_errors: bool = True) -> Table:
     res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
     return slope_table(res, at_x, opts, ints_are_errors=ints_are_errors)
+
+
+def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
+               caller: Any = None) -> Table:
+    """Build one figure of the fit; with ``caller`` (the calling range, as xlwings passes it
+    on the desktop) place it beside that cell through xlwings' pictures API, updating the
+    picture of the same name. Returns the figure's title, one cell."""
+    from .cells import _single
+    from .engine.scan import scan_degrees as _scan
+    from .plots import KINDS, curve, degree_scan, influence, normal_quantiles, residuals
+
+    k = _single(kind, "kind")
+    k = k.strip().lower() if isinstance(k, str) else k
+    if k not in KINDS:
+        raise CellError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    inp = prepare_fit(y, x, 1 if k == "degrees" else model, options)
+    res = fit_prepared(inp)
+    try:
+        if k == "degrees":
+            top = _max_degree(model)
+            fig = degree_scan(_scan(inp.y, inp.x[:, 0], top, folds=inp.options.folds,
+                                    **inp.options.fit_kwargs()))
+        elif k == "contour":
+            from .plots import contour
+
+            try:
+                opt = optimum(res)
+            except ModelError:
+                opt = None
+            fig = contour(res, opt)
+        else:
+            fig = {"curve": curve, "residuals": residuals, "quantiles": normal_quantiles,
+                   "influence": influence}[k](res)
+    except ModelError as exc:
+        raise CellError(str(exc)) from None
+    title = fig.axes[0].get_title()
+    if caller is None:
+        return [[f"{title} (figure placed on the desktop only; headless: xlbridge plot)"]]
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    sheet = caller.sheet
+    beside = caller.offset(column_offset=1)
+    sheet.pictures.add(fig, name=f"xlbridge {k} {caller.address}", update=True,
+                       left=beside.left, top=beside.top)
+    return [[title]]

@@ -25,7 +25,7 @@ from . import cells, model_cells
 from .cells import Table, run_guarded
 
 __all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREES", "XB_CHECKS",
-           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_INFO", "FUNCTIONS", "CATEGORY",
+           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_PLOT", "XB_INFO", "FUNCTIONS", "CATEGORY",
            "DECORATORS"]
 
 CATEGORY = "xlbridge"
@@ -181,6 +181,20 @@ def XB_SLOPE(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Tabl
 
 
 @xw.func(category=CATEGORY)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("kind", doc="Figure: curve, residuals, quantiles, influence, degrees or contour.",
+        err_to_str=True)
+@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("caller", doc="Filled in by xlwings: the calling cell (the figure goes beside it).")
+def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
+            caller: Any = None) -> Table:
+    """Places a figure of the fit beside the calling cell (xlwings pictures, updated in place) and returns its title: curve with bands, residuals, quantiles, influence, degrees, contour."""  # noqa: E501
+    return run_guarded(model_cells.plot_cells, y, x, model, kind, options, caller)
+
+
+@xw.func(category=CATEGORY)
 def XB_INFO() -> Table:
     """Versions of xlbridge, Python and its numerical libraries, for audit trails."""
     return run_guarded(cells.info_cells)
@@ -188,5 +202,5 @@ def XB_INFO() -> Table:
 
 FUNCTIONS: dict[str, Callable[..., Table]] = {
     f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_DEGREES,
-                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_INFO)
+                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_PLOT, XB_INFO)
 }
