@@ -104,3 +104,23 @@ def test_large_well_conditioned_fit_stays_in_double_precision():
     assert r.method in ("qr", "cholesky")
     ref = np.polynomial.polynomial.polyfit(x, y, 2)
     np.testing.assert_allclose(r.estimates, ref, rtol=1e-10)
+
+
+@FAST
+@given(st.lists(st.tuples(st.sampled_from([1e308, -1e308, 1e154, 3e200]),
+                          st.floats(-1e3, 1e3)), min_size=1, max_size=3),
+       st.integers(1, 3))
+def test_numbers_too_large_to_square_get_a_message(big, degree):
+    """Huge magnitudes either fit or raise ModelError saying to rescale: never an overflow
+    escaping as another exception, never a non-finite estimate."""
+    rng = np.random.default_rng(0)
+    x = rng.uniform(0, 10, 12)
+    y = 1 + x + rng.normal(0, 0.1, 12)
+    for i, (v, xv) in enumerate(big):
+        y[i], x[i] = v, xv
+    try:
+        r = fit(y, x, degree)
+    except ModelError as exc:
+        assert "rescale" in str(exc) or "distinct" in str(exc)
+    else:
+        assert np.all(np.isfinite(r.estimates))

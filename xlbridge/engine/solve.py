@@ -32,6 +32,9 @@ EXACT_BUDGET = 400_000
 #: Below this many rows the QR factorisation is used; above it, Cholesky on the scaled
 #: basis with one corrected semi-normal step (as accurate when the basis is well conditioned).
 CHOLESKY_MIN_ROWS = 20_000
+#: The Cholesky factor is used only while every diagonal entry of the unit-column factor
+#: (the sine of the angle between a column and the span of those before it) exceeds this.
+CHOLESKY_MIN_DIAG = 1e-4
 _CHUNK = 65_536
 
 
@@ -98,6 +101,14 @@ def monomials(t: np.ndarray, powers: tuple[tuple[int, ...], ...]) -> np.ndarray:
     return out
 
 
+def power_of_two_scale(spread: np.ndarray) -> np.ndarray:
+    """The smallest power of two above each spread (1 where the spread is 0 or not finite):
+    dividing by it is exact, and puts the centered predictor in [-1, 1]."""
+    spread = np.asarray(spread, dtype=float)
+    ok = (spread > 0) & np.isfinite(spread)
+    return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, spread, 1.0))[1]), 1.0)
+
+
 def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Basis:
     """Center each predictor at its (weighted) mean where the model allows it."""
     centrable = spec.centrable()
@@ -108,8 +119,7 @@ def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Basis:
         if centrable[j]:
             centers[j] = np.average(col, weights=w)
         spread = float(np.max(np.abs(col - centers[j]))) if len(col) else 0.0
-        if spread > 0 and np.isfinite(spread):
-            scales[j] = 2.0 ** np.frexp(spread)[1]
+        scales[j] = power_of_two_scale(spread)
     return Basis(centers, scales, spec.all_powers)
 
 
@@ -180,7 +190,7 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
             r_fac = np.linalg.cholesky(an.T @ an).T
         except np.linalg.LinAlgError:
             r_fac = None
-        if r_fac is not None and np.min(np.abs(np.diag(r_fac))) > 1e-4:
+        if r_fac is not None and np.min(np.abs(np.diag(r_fac))) > CHOLESKY_MIN_DIAG:
             method = "cholesky"
         else:
             r_fac = None
@@ -203,6 +213,8 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     resid_w = z - an @ bn
     del an
     b = bn / norms
+    if not (np.all(np.isfinite(b)) and np.all(np.isfinite(resid_w))):
+        raise ModelError(_too_large(y, x))
     outer = np.outer(norms, norms)
     inv_scaled = inv_n / outer
     gram = (r_fac.T @ r_fac) * outer
@@ -210,12 +222,18 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     cond = float(sv[0] / sv[-1])
 
     raw = basis.raw_map()
-    beta = np.array([float(sum(m * Fraction(float(v)) for m, v in zip(row, b))) for row in raw])
+    try:
+        beta = np.array([float(sum(m * Fraction(float(v)) for m, v in zip(row, b)))
+                         for row in raw])
+    except OverflowError:
+        raise ModelError(_too_large(y, x)) from None
     mf = np.array([[float(v) for v in row] for row in raw])
     inv_raw = mf @ inv_scaled @ mf.T
     resid = resid_w if sw is None else resid_w / sw
     sse = float(resid_w @ resid_w)
     sst = weighted_sst(y, w) if spec.intercept else float(z @ z)
+    if not (np.isfinite(sse) and np.isfinite(sst)):
+        raise ModelError(_too_large(y, x))
 
     fitn = float(np.linalg.norm(z - resid_w))
     bound = _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst)
@@ -257,7 +275,20 @@ def _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst
     return float(worst) if np.isfinite(worst) else np.inf
 
 
+def _too_large(y: np.ndarray, x: np.ndarray) -> str:
+    big = max(float(np.max(np.abs(y))), float(np.max(np.abs(x))))
+    return (f"the numbers are too large for double precision once squared (up to {big:.3g}); "
+            "rescale the data, e.g. work in thousands or millions")
+
+
 def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
+    try:
+        return _exact_core(x, y, w, spec, basis, core)
+    except OverflowError:
+        raise ModelError(_too_large(y, x)) from None
+
+
+def _exact_core(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
     try:
         ex = ExactFit(x, y, w, basis.powers, basis.centers)
     except ExactSingular as err:
