@@ -691,9 +691,10 @@ def _run_plot(args: argparse.Namespace) -> int:
         raise UsageError("--kind curve needs a model with one predictor; use contour")
     from xlbridge.plots import write_figures
 
-    for path in write_figures(f.result, args.out, kinds, svg=args.svg, force=args.force,
+    for kind in write_figures(f.result, args.out, kinds, svg=args.svg, force=args.force,
                               scan=scan):
-        print(f"wrote {path}")
+        for suffix in (".png", ".svg") if args.svg else (".png",):
+            print(f"wrote {args.out / (kind + suffix)}")
     return EXIT_OK
 
 

@@ -78,7 +78,7 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
         figures = write_figures(res, out / "figures", scan=scan, prefix=f"{stem}-",
                                 force=True)
         report = out / f"{stem}-report.html"
-        write_report(report, res, scan=scan,
+        write_report(report, res, scan=scan, pngs=figures,
                      source=Source(file=name, y_ref=f"{res.response} (sheet Data)",
                                    x_ref=", ".join(res.spec.predictors) + " (sheet Data)"))
         failed = evaluation.failed

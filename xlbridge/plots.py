@@ -196,42 +196,64 @@ def save(fig, path: str | Path, fmt: str | None = None) -> Path:
 KINDS = ("curve", "residuals", "quantiles", "influence", "degrees", "contour")
 
 
+def applicable(res: FitResult, scan: DegreeScan | None = None) -> list[str]:
+    """The figure kinds that apply to a fit (curve and degrees for one predictor, contour
+    for two or more)."""
+    one = res.spec.k == 1
+    kinds = [k for k in KINDS if (k != "contour" if one else k not in ("curve", "degrees"))]
+    return [k for k in kinds if k != "degrees" or scan is not None]
+
+
+def figure(res: FitResult, kind: str, scan: DegreeScan | None = None):
+    """One figure of the fit by kind."""
+    if kind == "degrees":
+        if scan is None:
+            raise ModelError("the degrees figure needs a degree scan")
+        return degree_scan(scan)
+    if kind == "contour":
+        from .engine import optimum
+
+        try:
+            opt = optimum(res)
+        except ModelError:
+            opt = None
+        return contour(res, opt)
+    makers = {"curve": curve, "residuals": residuals, "quantiles": normal_quantiles,
+              "influence": influence}
+    if kind not in makers:
+        raise ModelError(f"figure kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    return makers[kind](res)
+
+
+def png_bytes(fig) -> bytes:
+    """The figure as PNG bytes."""
+    import io
+
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
 def write_figures(res: FitResult, out: str | Path, kinds=None, *, svg: bool = False,
                   force: bool = False, scan: DegreeScan | None = None,
-                  prefix: str = "") -> list[Path]:
-    """Write the figures of one fit into folder ``out`` (each file atomically; an existing
-    file only with ``force``); default: every kind that applies. Returns the paths."""
+                  prefix: str = "") -> dict[str, bytes]:
+    """Write the figures of one fit into folder ``out`` as ``<prefix><kind>.png`` (and .svg),
+    each atomically, an existing file only with ``force``; default: every kind that applies.
+    Returns the PNG bytes by kind (the report embeds them without drawing again)."""
     from .book.safety import write_atomically
-    from .engine import optimum
 
-    one = res.spec.k == 1
-    wanted = list(kinds) if kinds else [
-        k for k in KINDS if (k != "contour" if one else k not in ("curve", "degrees"))]
-    if scan is None and "degrees" in wanted:
-        wanted.remove("degrees")
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
-    written = []
-    for kind in wanted:
-        if kind == "curve":
-            fig = curve(res)
-        elif kind == "residuals":
-            fig = residuals(res)
-        elif kind == "quantiles":
-            fig = normal_quantiles(res)
-        elif kind == "influence":
-            fig = influence(res)
-        elif kind == "degrees":
-            fig = degree_scan(scan)
-        else:
-            try:
-                opt = optimum(res)
-            except ModelError:
-                opt = None
-            fig = contour(res, opt)
-        for fmt in ("png", "svg") if svg else ("png",):
-            path = out / f"{prefix}{kind}.{fmt}"
-            write_atomically(path, lambda tmp, fig=fig, fmt=fmt: save(fig, tmp, fmt),
-                             force=force)
-            written.append(path)
-    return written
+    pngs = {}
+    for kind in list(kinds) if kinds else applicable(res, scan):
+        fig = figure(res, kind, scan)
+        pngs[kind] = data = png_bytes(fig)
+        write_atomically(out / f"{prefix}{kind}.png", lambda tmp, d=data: tmp.write_bytes(d),
+                         force=force)
+        if svg:
+            write_atomically(out / f"{prefix}{kind}.svg",
+                             lambda tmp, f=fig: save(f, tmp, "svg"), force=force)
+    return pngs

@@ -7,7 +7,6 @@ from __future__ import annotations
 import base64
 import hashlib
 import html
-import io
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -101,17 +100,20 @@ def _table(head: list[str], rows: list[list], text=(0,), classes=None) -> str:
     return "".join(out)
 
 
-def _png(fig) -> str:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
+CAPTIONS = {
+    "curve": "Fitted curve with confidence band of the mean and prediction band of a new "
+             "observation",
+    "contour": "Contours of the fitted surface",
+    "residuals": "Residuals against fitted values",
+    "quantiles": "Normal quantile plot",
+    "influence": "Leverage against studentized residuals",
+    "degrees": "Degree scan",
+}
 
-    FigureCanvasAgg(fig)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=plots.DPI)
-    return base64.b64encode(buf.getvalue()).decode("ascii")
 
-
-def _figure(fig, caption: str) -> str:
-    return (f'<figure><img alt="{html.escape(caption)}" src="data:image/png;base64,{_png(fig)}">'
+def _figure(png: bytes, caption: str) -> str:
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure><img alt="{html.escape(caption)}" src="data:image/png;base64,{data}">'
             f"<figcaption>{html.escape(caption)}</figcaption></figure>")
 
 
@@ -127,8 +129,9 @@ def _versions() -> list[list[str]]:
 
 
 def build_report(res: FitResult, *, scan: DegreeScan | None = None,
-                 source: Source | None = None, title: str | None = None) -> str:
-    """The whole report as one HTML string."""
+                 source: Source | None = None, title: str | None = None,
+                 pngs: dict[str, bytes] | None = None) -> str:
+    """The whole report as one HTML string (``pngs``: figures already drawn, by kind)."""
     src = source or Source()
     title = title or f"Model report: {res.response} ({res.model_text})"
     s = res.stats
@@ -186,20 +189,11 @@ def build_report(res: FitResult, *, scan: DegreeScan | None = None,
                      "predictor).</p>")
 
     parts.append("<h2 id='plots'>Plots</h2><div class='grid'>")
-    if res.spec.k == 1:
-        parts.append(_figure(plots.curve(res), "Fitted curve with confidence band of the mean "
-                                               "and prediction band of a new observation"))
-    else:
-        try:
-            opt = optimum(res)
-        except ModelError:
-            opt = None
-        parts.append(_figure(plots.contour(res, opt), "Contours of the fitted surface"))
-    parts.append(_figure(plots.residuals(res), "Residuals against fitted values"))
-    parts.append(_figure(plots.normal_quantiles(res), "Normal quantile plot"))
-    parts.append(_figure(plots.influence(res), "Leverage against studentized residuals"))
-    if scan is not None:
-        parts.append(_figure(plots.degree_scan(scan), "Degree scan"))
+    pngs = dict(pngs or {})
+    for kind in plots.applicable(res, scan):
+        if kind not in pngs:
+            pngs[kind] = plots.png_bytes(plots.figure(res, kind, scan))
+        parts.append(_figure(pngs[kind], CAPTIONS[kind]))
     parts.append("</div>")
 
     if res.spec.k >= 2 or (res.spec.degree or 0) >= 2:
