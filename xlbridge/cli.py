@@ -265,6 +265,14 @@ def _fit_from_args(args: argparse.Namespace, model: Any = None) -> _Fitted:
     return _Fitted(book, y_area, x_area, inp, result)
 
 
+def _read_points(f: _Fitted, args: argparse.Namespace, option: str, ref: str
+                 ) -> tuple[Any, Any]:
+    """(area, raw value) of the points a fitted model is evaluated at (--new-x, --at-x)."""
+    sheet = f.book.sheet_name(args.sheet) if args.sheet else None
+    (area,) = _resolve(f.book, [(option, ref)], sheet)
+    return _read_ref(f.book, ref, option, area)
+
+
 def _xlsx_copy(book: Any, out: Path | None, force: bool, title: str,
                blocks: Sequence[tuple[str, Sequence[Sequence[Any]]]]) -> None:
     """A copy of the workbook with one new sheet of result tables."""
@@ -351,9 +359,7 @@ def _run_predict(args: argparse.Namespace) -> int:
     from xlbridge.cells import PREDICT_COLUMNS
 
     f = _fit_from_args(args)
-    sheet = f.book.sheet_name(args.sheet) if args.sheet else None
-    (na,) = _resolve(f.book, [("new-x", args.new_x)], sheet)
-    nx_area, new_x = _read_ref(f.book, args.new_x, "new-x", na)
+    nx_area, new_x = _read_points(f, args, "new-x", args.new_x)
     opts = f.inp.options
     try:
         table = cells.predict_table(f.result, new_x, opts.replace(header=True))
@@ -643,9 +649,7 @@ def _run_slope(args: argparse.Namespace) -> int:
     from xlbridge.model_cells import slope_table
 
     f = _fit_from_args(args)
-    sheet = f.book.sheet_name(args.sheet) if args.sheet else None
-    (area,) = _resolve(f.book, [("at-x", args.at_x)], sheet)
-    at_area, at = _read_ref(f.book, args.at_x, "at-x", area)
+    at_area, at = _read_points(f, args, "at-x", args.at_x)
     opts = f.inp.options
     try:
         table = slope_table(f.result, at, opts.replace(header=True))
