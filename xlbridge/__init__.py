@@ -8,9 +8,9 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__", "fit", "FitResult", "FitStats", "Coefficient", "CenteredForm",
-           "Prediction", "ModelError", "ModelSpec", "checks", "row_diagnostics", "scan_degrees",
-           "optimum", "slopes"]
+__all__ = ["__version__", "fit", "fit_groups", "GroupsResult", "FitResult", "FitStats",
+           "Coefficient", "CenteredForm", "Prediction", "ModelError", "ModelSpec", "checks",
+           "row_diagnostics", "scan_degrees", "optimum", "slopes"]
 
 
 def __getattr__(name: str):
