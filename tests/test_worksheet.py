@@ -188,7 +188,7 @@ def test_info_needs_no_arguments_and_names_our_version():
 def test_functions_carry_help_text_and_category():
     assert set(ws.FUNCTIONS) == {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION",
                                  "XB_DEGREES", "XB_CHECKS", "XB_ROWS", "XB_OPTIMUM",
-                                 "XB_SLOPE", "XB_PLOT", "XB_INFO"}
+                                 "XB_SLOPE", "XB_PLOT", "XB_GROUPS", "XB_INFO"}
     for name, f in ws.FUNCTIONS.items():
         assert f.__doc__ and len(f.__doc__) <= 255 and "\n" not in f.__doc__, name
         if ws.DECORATORS == "shim":

@@ -40,6 +40,7 @@ EXPECTED_ARGS = {
     "XB_OPTIMUM": ["y", "x", "model", "options"],
     "XB_SLOPE": ["y", "x", "model", "at_x", "options"],
     "XB_PLOT": ["y", "x", "model", "kind", "options"],  # caller is filled in by xlwings
+    "XB_GROUPS": ["group", "y", "x", "model", "options"],
     "XB_INFO": [],
 }
 

@@ -6,6 +6,8 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
+
 from .cache import SCAN_CACHE, content_key
 from .cells import (
     CellError,
@@ -237,3 +239,87 @@ def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
     sheet.pictures.add(fig, name=f"xlbridge {k} {caller.address}", update=True,
                        left=beside.left, top=beside.top)
     return [[title]]
+
+
+def _group_key(v: Any, ints_are_errors: bool) -> tuple[Any, bool]:
+    """(key, usable) of one group cell: text, number, boolean or None (blank); dates as
+    their serial numbers; error cells are not usable."""
+    import datetime as dt
+
+    from .cells import _serial, is_error_text
+
+    if v is None:
+        return None, True
+    if isinstance(v, str):
+        s = v.strip()
+        if is_error_text(s):
+            return None, False
+        return (s if s else None), True
+    if isinstance(v, (bool, np.bool_)):
+        return bool(v), True
+    if isinstance(v, int):
+        return (None, False) if ints_are_errors else (float(v), True)
+    if isinstance(v, (dt.date, dt.time)):
+        return _serial(v), True
+    if isinstance(v, float):
+        return (v, True) if np.isfinite(v) else (None, not np.isinf(v))
+    return str(v), True
+
+
+def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
+               ints_are_errors: bool = True, weights: Any = None):
+    """One model per group from raw cells: ``(GroupsResult, Options, notes)``. The group
+    cells line up with y's rows (a header row of y and x is one of the group cells too)."""
+    from .cells import _grid
+    from .engine import fit_groups
+
+    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors, weights=weights)
+    unsupported = [k for k in ("log", "se", "error")
+                   if getattr(inp.options, k) != getattr(Options(), k)]
+    if unsupported:
+        raise CellError(f"option {unsupported[0]} is not available for grouped fits; fit a "
+                        "group on its own for remedies")
+    g = _grid(group, "group").transposed_line()
+    if g.cols != 1:
+        raise CellError(f"group must be one column; got {g.cols} columns")
+    keys = list(g.flat)
+    if inp.response is not None or inp.names is not None:
+        keys = keys[1:]  # the header row of y and x
+    n = len(inp.y)
+    if len(keys) < n or any(k is not None for k in keys[n:]):
+        raise CellError(f"group has {len(keys)} rows but y has {n}; select ranges of the same "
+                        "height")
+    cleaned = [_group_key(k, ints_are_errors) for k in keys[:n]]
+    usable = np.array([ok for _, ok in cleaned], dtype=bool)
+    notes = []
+    if not usable.all():
+        notes.append(f"{int((~usable).sum())} rows left out: their group cell holds an error")
+    x = inp.x[usable]
+    w = None if inp.weights is None else inp.weights[usable]
+    try:
+        res = fit_groups([k for (k, ok) in cleaned if ok], inp.y[usable],
+                         x[:, 0] if x.shape[1] == 1 else x, inp.model, names=inp.names,
+                         weights=w, **{k: v for k, v in inp.options.fit_kwargs().items()
+                                       if k in ("intercept", "level")})
+    except ModelError as exc:
+        raise CellError(str(exc)) from None
+    return res, inp.options, notes
+
+
+def groups_table(res, options: Options | None = None, notes=()) -> Table:
+    """One row per group: key, n_used, estimate and std error per term, r2, adj_r2, rmse,
+    flag; the blank group shows as "(blank)"."""
+    opts = options or Options()
+    rows = res.table(header=opts.header)
+    start = 1 if opts.header else 0
+    for r in rows[start:]:
+        if r[0] is None:
+            r[0] = "(blank)"
+    _notes(rows, notes)
+    return _finish(rows)
+
+
+def groups_cells(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
+                 ints_are_errors: bool = True) -> Table:
+    res, opts, notes = groups_fit(group, y, x, model, options, ints_are_errors=ints_are_errors)
+    return groups_table(res, opts, notes)

@@ -25,8 +25,8 @@ from . import cells, model_cells
 from .cells import Table, run_guarded
 
 __all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREES", "XB_CHECKS",
-           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_PLOT", "XB_INFO", "FUNCTIONS", "CATEGORY",
-           "DECORATORS"]
+           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_PLOT", "XB_GROUPS", "XB_INFO",
+           "FUNCTIONS", "CATEGORY", "DECORATORS"]
 
 CATEGORY = "xlbridge"
 
@@ -195,6 +195,19 @@ def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
 
 
 @xw.func(category=CATEGORY)
+@xw.arg("group", doc="The group of each row (product family, region, supplier...): text, "
+        "numbers or blanks, same height as y.", err_to_str=True)
+@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("options", doc="Optional text: level=0.95; intercept=yes; header=yes; names=auto.",
+        err_to_str=True)
+def XB_GROUPS(group: Any, y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    """One model per group, all groups at once: one row per group with n_used, each coefficient and its standard error, r2, adj_r2, rmse and a flag (too few rows, rank deficient...)."""  # noqa: E501
+    return run_guarded(model_cells.groups_cells, group, y, x, model, options)
+
+
+@xw.func(category=CATEGORY)
 def XB_INFO() -> Table:
     """Versions of xlbridge, Python and its numerical libraries, for audit trails."""
     return run_guarded(cells.info_cells)
@@ -202,5 +215,6 @@ def XB_INFO() -> Table:
 
 FUNCTIONS: dict[str, Callable[..., Table]] = {
     f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_DEGREES,
-                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_PLOT, XB_INFO)
+                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_PLOT, XB_GROUPS,
+                            XB_INFO)
 }
