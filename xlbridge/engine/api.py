@@ -127,6 +127,13 @@ def fit(
         )
     if wu is not None and not math.isfinite(float(np.sum(wu))):
         raise ModelError("weights are too large")
+    # overflow in extreme data is detected and reported as a message, not a warning
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _fit_clean(spec, xu, yu, wu, float(level), used, n_dropped, response, se,
+                          bool(log), error, yv)
+
+
+def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, error, yv):
     notes: list[str] = []
     if log:
         if np.any(yu <= 0):
@@ -148,10 +155,9 @@ def fit(
     if se != "ols":
         notes.append(f"standard errors, tests and intervals use the {se.upper()} "
                      "heteroscedasticity-consistent covariance")
-    remedy = Remedy(se=se, log=bool(log), error=error, smearing=smearing,
-                    iterations=iterations, notes=tuple(notes))
-    return inference.build(spec, core, xu, yu, wu, float(level), used, n_dropped, response,
-                           remedy)
+    remedy = Remedy(se=se, log=log, error=error, smearing=smearing, iterations=iterations,
+                    notes=tuple(notes))
+    return inference.build(spec, core, xu, yu, wu, level, used, n_dropped, response, remedy)
 
 
 #: Reweighting stops when no raw coefficient moves by more than this, relative to its size.
