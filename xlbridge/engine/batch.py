@@ -1,26 +1,32 @@
 """Many groups, one model: ``fit_groups`` fits the same model to every group of rows at once.
 
-Method (per group, computed for blocks of groups with array operations, no loop per group):
+Every group gets the single fit's basis: each predictor centered at the group's (weighted)
+mean where the model allows it and divided by a power of two (``solve.power_of_two_scale``).
+Then up to three stages, each answering the groups its own error estimate vouches for and
+passing on the rest (groups of blocks are computed with array operations, no loop per
+group):
 
-1. The single fit's basis: each predictor centered at the group's (weighted) mean where the
-   model allows it and divided by a power of two (``solve.power_of_two_scale``).
-2. The scaled design is built in double-double arithmetic (a pair of doubles per entry, so
-   it equals the monomials of the stored data to about 32 significant digits), and the
-   normal-equation sums (the Gram matrix, X'Wy and y'Wy) are summed exactly but for a final
+1. Double precision ("batched"): the Gram matrix and X'Wy from the scaled design, a first
+   solution from the Cholesky factor of the unit-column Gram matrix (accepted under the
+   single fit's rule for that factor: every diagonal entry above
+   ``solve.CHOLESKY_MIN_DIAG``), the residuals computed row by row from it, and one
+   correction step from them (corrected semi-normal equations). The residual sum of squares
+   is summed from the residuals, so it does not cancel. A first-order bound of the rounding
+   error of every reported estimate, standard error, residual SD and R^2 (``_first_bound``)
+   must be at most ``BATCH_ACCEPT``.
+2. Double-double ("refined"): the scaled design in double-double arithmetic (a pair of
+   doubles per entry, so it equals the monomials of the stored data to about 32 significant
+   digits), the normal-equation sums (the Gram matrix, X'Wy and y'Wy) exact but for a final
    rounding far below double precision: the batched counterpart of the single fit's exact
-   path, which forms the normal equations in exact arithmetic.
-3. A first solution from the Cholesky factor of the unit-column Gram matrix, accepted under
-   the single fit's own rule for that factor (every diagonal entry above
-   ``solve.CHOLESKY_MIN_DIAG``); then one refinement step, its residual h - G b computed in
-   double-double. Residual and total sums of squares and the variance factors come from
-   forms that are stationary in the solution, so the remaining error enters squared. The
-   raw-unit coefficients are converted in double-double (the map of ``Basis.raw_map``).
-4. A first-order estimate of the relative error of every reported estimate, standard error,
-   residual SD and R^2. A group is answered here only when that estimate is below
-   ``solve.ACCEPT_ERROR``, the threshold at which the single fit accepts its own
-   double-precision answer; every other group (ill conditioned, aliased, or with at least
-   ``solve.CHOLESKY_MIN_ROWS`` rows) is passed to the single-group ``fit``, which decides
-   aliasing with ``solve.ALIAS_TOL`` and takes its exact path where needed.
+   path. The same first solution, then one refinement step with its residual h - G b in
+   double-double; residual and total sums of squares and the variance factors from forms
+   that are stationary in the solution, so the remaining error enters squared; raw-unit
+   coefficients converted in double-double (the map of ``Basis.raw_map``). Its error
+   estimate must be below ``solve.ACCEPT_ERROR``, the threshold at which the single fit
+   accepts its own double-precision answer.
+3. The single-group ``fit`` ("single") for every other group (ill conditioned, aliased, or
+   with at least ``solve.CHOLESKY_MIN_ROWS`` rows), which decides aliasing with
+   ``solve.ALIAS_TOL`` and takes its exact path where needed.
 
 Group keys: numbers (1 and 1.0 are one group), dates and times, text (exact: case and spaces
 count), true/false, and blank (None, NaN, NaT or empty text are one blank group). Groups come
@@ -40,6 +46,7 @@ from dataclasses import dataclass
 from math import comb
 
 import numpy as np
+from scipy import sparse
 
 from . import inference
 from .api import _as_float, _names_of, fit
@@ -60,8 +67,22 @@ __all__ = ["EXTRAPOLATION_SPAN", "GroupsResult", "finite_range", "fit_groups", "
 #: less than this fraction of that predictor's range over all groups: using its curve across
 #: the range the other groups cover means predicting outside its own data. (Our choice.)
 EXTRAPOLATION_SPAN = 0.5
+#: A group is answered by the double-precision first stage when the estimated relative
+#: error of every estimate, standard error, residual SD and R^2 it reports is at most this.
+#: Looser than solve.ACCEPT_ERROR (1e-14), the single fit's own target near the digits NIST
+#: StRD certifies, because the promise here is agreement with ``fit`` to 12 significant
+#: digits: fit's answer is within 1e-14 of the exact one, so a group accepted here agrees with
+#: it to about 1.1e-13, with a margin of nine to 1e-12. Groups above it go on to the
+#: double-double stage, held to ACCEPT_ERROR as before.
+BATCH_ACCEPT = 1e-13
 #: Rows per block of groups solved together (a block's arrays stay in the CPU caches).
 _BLOCK_ROWS = 16000  # (arrays just under 128 KiB: allocated without fresh pages each time)
+#: The first stage: rows per chunk of groups whose group-level algebra is done at once
+#: (fewer, longer array operations), and per block of its passes over their rows.
+_FIRST_CHUNK_ROWS = 1 << 20
+_FIRST_BLOCK_ROWS = 1 << 15
+#: Groups up to this many rows are summed in one pass; longer ones as sums of partial sums.
+_FLAT_SUM_ROWS = 8
 
 # --- group keys ----------------------------------------------------------------------------
 
@@ -142,22 +163,26 @@ def _merge_uniques(values: list) -> tuple[np.ndarray, list]:
             [kv[1] for kv in distinct])
 
 
-def _int_codes(arr: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _int_codes(arr: np.ndarray, copy: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Codes and sorted unique values of an integer array (a presence table when the range
-    is small: much faster than sorting)."""
+    is small: much faster than sorting). ``copy=False``: the codes may be ``arr`` itself
+    (when it holds every value of 0..G-1 already)."""
     lo, hi = int(arr.min()), int(arr.max())
     if hi - lo <= max(4 * arr.size, 1 << 16):
-        off = (arr - lo).astype(np.intp) if lo else arr.astype(np.intp)
+        off = (arr - lo).astype(np.intp) if lo else arr.astype(np.intp, copy=copy)
         present = np.zeros(hi - lo + 1, dtype=bool)
         present[off] = True
+        if present.all():  # the values are consecutive: their offsets are the codes
+            return off, np.arange(lo, hi + 1)
         rank = np.cumsum(present) - 1
         return rank[off], np.flatnonzero(present) + lo
     uniq, inv = np.unique(arr, return_inverse=True)
     return inv.ravel(), uniq
 
 
-def group_codes(group) -> tuple[np.ndarray, list]:
-    """Integer code per row (0..G-1 in key order) and the G normalized keys."""
+def group_codes(group, copy: bool = True) -> tuple[np.ndarray, list]:
+    """Integer code per row (0..G-1 in key order) and the G normalized keys (``copy=False``:
+    the codes may be ``group`` itself when it holds them already)."""
     arr = None
     if isinstance(group, np.ndarray) or (hasattr(group, "dtype") and hasattr(group, "__array__")):
         arr = np.asarray(group)
@@ -182,8 +207,8 @@ def group_codes(group) -> tuple[np.ndarray, list]:
         return np.zeros(0, dtype=np.intp), []
     kind = arr.dtype.kind
     if kind in "iu":
-        codes, uniq = _int_codes(arr)
-        return codes, [int(v) for v in uniq]
+        codes, uniq = _int_codes(arr, copy)
+        return codes, uniq.tolist()
     if kind == "f":
         nan = np.isnan(arr)
         vals = arr[~nan] if nan.any() else arr
@@ -248,17 +273,24 @@ def _hashable(v) -> bool:
     return True
 
 
-def _stable_order(codes: np.ndarray, n_groups: int) -> np.ndarray:
-    """Stable argsort of group codes (radix sort on 16-bit pieces)."""
-    if codes.size and np.all(codes[1:] >= codes[:-1]):
-        return np.arange(codes.size)
-    if n_groups <= 1 << 16:
-        return np.argsort(codes.astype(np.uint16), kind="stable")
-    if n_groups <= 1 << 32:
-        order = np.argsort((codes & 0xFFFF).astype(np.uint16), kind="stable")
-        hi = (codes[order] >> 16).astype(np.uint16)
-        return order[np.argsort(hi, kind="stable")]
-    return np.argsort(codes, kind="stable")
+def _group_order(codes: np.ndarray, n_groups: int) -> tuple[np.ndarray | None, np.ndarray]:
+    """Stable argsort of group codes 0..n_groups-1 (None when they are sorted already) and
+    the count of each code.
+
+    A counting sort: the conversion of a sparse matrix with one entry per row, (code, row
+    number), from coordinate to compressed-row form, which lists each row's column numbers
+    in order; several times faster than numpy's radix argsort."""
+    if codes.size < 2 or np.all(codes[1:] >= codes[:-1]):
+        return None, np.bincount(codes, minlength=n_groups)
+    n = codes.size
+    small = max(n, n_groups) < 2**31  # 32-bit indices: no conversions inside
+    itype = np.int32 if small else np.intp
+    mat = sparse.coo_array((np.ones(n, dtype=np.int8),
+                            (codes.astype(itype, copy=False), np.arange(n, dtype=itype))),
+                           shape=(n_groups, n)).tocsr()
+    if not mat.has_sorted_indices:
+        mat.sort_indices()
+    return mat.indices.astype(np.intp, copy=False), np.diff(mat.indptr).astype(np.intp)
 
 
 # --- double-double arithmetic (error-free transformations) --------------------------------
@@ -390,10 +422,10 @@ def _block_moments(plan: _Plan, xcols: list[np.ndarray], y: np.ndarray, w, weigh
     """Basis and normal-equation sums of every group of one block, into ``out[...][rows]``.
 
     xcols[j] and y are (B, m); w is None (no weights, no padding), 0/1 (padding rows 0) or
-    the weights (padding rows 0); ``tops`` holds per group max|x_j| bounds (lo, hi), max w,
-    max|w y| and max|y|. The design is the double-double scaled basis (|t| < 1); every sum
-    of its products with the weights and y is exact but for the rest sums of
-    ``_exact_sum``."""
+    the weights (padding rows 0); ``tops`` holds per group the predictors' ranges (lo,
+    hi), max w (None without weights) and max|y|. The design is the double-double scaled
+    basis (|t| < 1); every sum of its products with the weights and y is exact but for the
+    rest sums of ``_exact_sum``."""
     b_n, m = y.shape
     sw = np.full(b_n, float(m)) if w is None else _rsum(w)
     ts = []
@@ -557,16 +589,22 @@ def _raw_map(plan: _Plan, centers: np.ndarray, scales: np.ndarray):
 
     log2s = np.frexp(scales)[1] - 1
     for i, col, fac, ep in plan.raw_pairs:
-        hi, lo = np.ones(n_g), np.zeros(n_g)
+        hi = lo = None
         for j, e, binom in fac:
-            hi, lo = _dd_mul(hi, lo, *power(j, e))
+            ph, pl = power(j, e)
+            hi, lo = (ph, pl) if hi is None else _dd_mul(hi, lo, ph, pl)
             if binom & (binom - 1):  # not a power of two: one more product
                 hi, lo = _dd_mul(hi, lo, np.full(n_g, float(binom)), None)
             elif binom != 1:
                 hi, lo = hi * binom, lo * binom  # exact
-        shift = -(np.array(ep) @ log2s)
-        mh[i, col] = np.ldexp(hi, shift)  # exact: a power of two
-        ml[i, col] = np.ldexp(lo, shift)
+        if not any(ep):
+            mh[i, col] = 1.0 if hi is None else hi
+            ml[i, col] = 0.0 if lo is None else lo
+            continue
+        shift = -(np.array(ep, dtype=np.int32) @ log2s)  # int32: ldexp's fast loop
+        mh[i, col] = np.ldexp(1.0 if hi is None else hi, shift)  # exact: a power of two
+        if lo is not None:
+            ml[i, col] = np.ldexp(lo, shift)
     return mh, ml
 
 
@@ -646,26 +684,30 @@ def _solve_groups(plan: _Plan, s: dict, n: np.ndarray) -> dict:
             "rmse": np.sqrt(s2), "bound": bound}
 
 
-def _raw_beta(plan: _Plan, mh, ml, bh, bl) -> np.ndarray:
-    """beta = M b in double-double over the nonzero entries of M, rounded once."""
+def _raw_beta(plan: _Plan, mh, ml, bh, bl, shift=None) -> np.ndarray:
+    """beta = M b in double-double over the nonzero entries of M, rounded once; ``shift``
+    (per group) is added to the intercept (column 0) first."""
     p = len(plan.powers)
     rows: list[list] = [[] for _ in range(p)]
     for i, col, _fac, _ep in plan.raw_pairs:
         rows[i].append((mh[i, col], ml[i, col], bh[col], bl[col]))
+    if shift is not None:
+        rows[0].append((shift, None, np.ones_like(shift), None))
     return np.array([sum(_dd_sum_products(r)) for r in rows])
 
 
-def _q_error(p: int, norms, r_fac, r_inv, u, q) -> np.ndarray:
+def _q_error(p: int, norms, r_fac, r_inv, u, q, gram_err: float = EPS) -> np.ndarray:
     """Relative error estimate of q_k computed in double from the unit-column Cholesky
-    factor R of the rounded Gram matrix: R'R = G_n + E with |E| <= eps |G_n| (rounding of
-    the double-double Gram matrix; |G_n| <= 1) + (p + 1) eps |R'||R| (the factor's backward
-    error), so |dq| <= |u_n|'|E||u_n|; plus rounding in the triangular solve (p eps,
-    amplified by the factor's condition number, ||R||_F ||R^-1||_F) and in v (eps)."""
+    factor R of the rounded Gram matrix: R'R = G_n + E with |E| <= gram_err |G_n| (the
+    Gram matrix's own rounding: eps for the double-double one; |G_n| <= 1) + (p + 1) eps
+    |R'||R| (the factor's backward error), so |dq| <= |u_n|'|E||u_n|; plus rounding in the
+    triangular solve (p eps, amplified by the factor's condition number, ||R||_F ||R^-1||_F)
+    and in v (eps)."""
     un = np.abs(u * norms[None, :, :])
     ru = _mm(un, np.abs(r_fac).transpose(1, 0, 2))
     cond = np.sqrt(p * np.einsum("ijn,ijn->n", r_inv, r_inv))
-    return ((EPS * np.sum(un, axis=1) ** 2 + (p + 1) * EPS * np.sum(ru * ru, axis=1)) / q
-            + 2 * p * EPS * cond + 2 * EPS)
+    return ((gram_err * np.sum(un, axis=1) ** 2 + (p + 1) * EPS * np.sum(ru * ru, axis=1))
+            / q + 2 * p * EPS * cond + 2 * EPS)
 
 
 def _bound(plan: _Plan, v: dict) -> np.ndarray:
@@ -723,6 +765,280 @@ def _bound(plan: _Plan, v: dict) -> np.ndarray:
     worst = np.maximum(np.max(rel_beta, axis=0), np.max(rel_se, axis=0))
     worst = np.maximum(worst, np.maximum(rel_sse / 2 + 2 * EPS, rel_r2))
     worst = np.where(rho < 0.01, worst, np.inf)
+    return np.where(np.isfinite(worst), worst, np.inf)
+
+
+# --- blocks of groups ----------------------------------------------------------------------
+
+def _row_blocks(sizes: np.ndarray, block_rows: int):
+    """(padded length m, positions) of the blocks the groups with ``sizes`` rows are solved
+    in: groups of one exact size share blocks when there are enough of them, the rest are
+    padded to a few bucket sizes."""
+    counts = np.bincount(sizes)
+    shared = counts[sizes] >= 256
+    sizes = np.where(shared, sizes, _bucket_size(sizes))
+    for m in np.unique(sizes).tolist():
+        members = np.flatnonzero(sizes == m)
+        step = max(1, block_rows // m)
+        for a in range(0, len(members), step):
+            yield m, members[a:a + step]
+
+
+def _block_rows(m: int, gi: np.ndarray, n_used: np.ndarray, start: np.ndarray,
+                xcols: list[np.ndarray], ys: np.ndarray, ws: np.ndarray | None,
+                by_row: bool = False):
+    """(B, m) arrays (group, row within the group) of the rows of groups ``gi`` (rows sorted
+    by group), or (m, B) ones if ``by_row``: predictors, y and the weights (None: no weights
+    and no padding; padding rows repeat the group's last row, so its range is unchanged,
+    with weight 0). Whole consecutive groups come as views (transposed if ``by_row``: the
+    first arithmetic on them writes C order), but the weights in C order."""
+    nb = n_used[gi]
+    s0 = start[gi]
+    b_n = len(gi)
+    if nb.min() == m == nb.max() and (b_n == 1 or np.all(np.diff(s0) == m)):
+        sl = slice(int(s0[0]), int(s0[0]) + b_n * m)
+
+        def view(a):
+            v = a[sl].reshape(b_n, m)
+            return v.T if by_row else v
+        return ([view(xc) for xc in xcols], view(ys),
+                None if ws is None else np.ascontiguousarray(view(ws)))
+    ar = np.arange(m)
+    if by_row:
+        idx = s0 + np.minimum(ar[:, None], nb - 1)
+        pad = ar[:, None] >= nb
+    else:
+        idx = s0[:, None] + np.minimum(ar, nb[:, None] - 1)
+        pad = ar >= nb[:, None]
+    if ws is not None:
+        wb = np.where(pad, 0.0, ws[idx])
+    else:
+        wb = (~pad).astype(float) if pad.any() else None
+    return [xc[idx] for xc in xcols], ys[idx], wb
+
+
+# --- the double-precision first stage -------------------------------------------------------
+
+def _first_stage(plan: _Plan, batch: np.ndarray, n_used: np.ndarray, start: np.ndarray,
+                 xcols: list[np.ndarray], ys: np.ndarray, ws: np.ndarray | None,
+                 tops: dict) -> dict:
+    """Double-precision fits of the groups ``batch`` with their error estimates (one row
+    per group of ``batch``); ``accept`` where the estimate is at most BATCH_ACCEPT. Writes
+    the groups' predictor ranges into ``tops["lo"]`` and ``tops["hi"]`` (groups, k)."""
+    n_b, p = len(batch), len(plan.powers)
+    out = {"beta": np.empty((n_b, p)), "se": np.empty((n_b, p))}
+    for key in ("r2", "adj", "rmse", "bound"):
+        out[key] = np.empty(n_b)
+    for m, pos in _row_blocks(n_used[batch], _FIRST_CHUNK_ROWS):
+        res = _first_chunk(plan, m, batch[pos], n_used, start, xcols, ys, ws, tops)
+        for key, v in res.items():
+            out[key][pos] = v
+    out["accept"] = out["bound"] <= BATCH_ACCEPT
+    return out
+
+
+def _scaled_columns(plan: _Plan, xcols: list[np.ndarray], centers: np.ndarray,
+                    scales: np.ndarray):
+    """The monomial q of the scaled predictors of (m, B) blocks, C order, as a function of
+    q (None for the constant; each built once, from a parent with one exponent lower)."""
+    ts = []
+    for j, xj in enumerate(xcols):
+        if plan.centrable[j]:
+            t = np.subtract(xj, centers[j], order="C")
+        else:
+            t = np.array(xj, order="C")
+        t *= 1.0 / scales[j]  # exact: a power of two
+        ts.append(t)
+    cols: dict[tuple[int, ...], np.ndarray] = {}
+
+    def column(q):
+        if not any(q):
+            return None
+        if q not in cols:
+            j = next(i for i, e in enumerate(q) if e)
+            parent = q[:j] + (q[j] - 1,) + q[j + 1:]
+            cols[q] = ts[j] if not any(parent) else column(parent) * ts[j]
+        return cols[q]
+
+    return column
+
+
+def _row_summer(m: int):
+    """(sum, error count) for the column sums of C-order (m, B) blocks: sum(a) is the sum
+    of each column, with rounding error at most error count * eps times its sum of absolute
+    terms, whatever the order of the additions. Up to _FLAT_SUM_ROWS rows one sum (m - 1);
+    beyond, the sum of sums of c = ceil(sqrt(m)) rows each, c + m // c + (m mod c) - 2, so
+    the count grows like 2 sqrt(m)."""
+    if m <= _FLAT_SUM_ROWS:
+        return (lambda a: np.einsum("mb->b", a)), m - 1
+    c = math.isqrt(m - 1) + 1
+    n_full, rest = divmod(m, c)
+
+    def two_level(a):
+        total = a[:n_full * c].reshape(n_full, c, -1).sum(axis=1).sum(axis=0)
+        return total + a[n_full * c:].sum(axis=0) if rest else total
+    return two_level, c + n_full + rest - 2
+
+
+def _first_chunk(plan: _Plan, m: int, gi: np.ndarray, n_used: np.ndarray,
+                 start: np.ndarray, xcols: list[np.ndarray], ys: np.ndarray,
+                 ws: np.ndarray | None, tops: dict) -> dict:
+    """The first stage for groups ``gi``, padded to m rows: two passes over their rows in
+    blocks of _FIRST_BLOCK_ROWS (sums; residuals) around the group-level algebra. Row
+    blocks are (m, B), group-level arrays have the group axis last."""
+    n_g, k, p = len(gi), len(xcols), len(plan.powers)
+    n = n_used[gi].astype(float)
+    lo, hi = np.empty((k, n_g)), np.empty((k, n_g))
+    rsum, n_sum = _row_summer(m)  # for the sums whose rounding the bound counts
+
+    def flat(a, b=None):
+        return np.einsum("mb->b", a) if b is None else np.einsum("mb,mb->b", a, b)
+
+    sw, cy, yy = np.empty(n_g), np.zeros(n_g), np.empty(n_g)
+    centers, scales = np.zeros((k, n_g)), np.empty((k, n_g))
+    mom = np.empty((len(plan.moments), n_g))
+    h = np.empty((p, n_g))
+    step = max(1, _FIRST_BLOCK_ROWS // m)
+    blocks = [slice(a, a + step) for a in range(0, n_g, step)]
+
+    for sl in blocks:
+        xb, yb, wb = _block_rows(m, gi[sl], n_used, start, xcols, ys, ws, True)
+        sw[sl] = float(m) if wb is None else flat(wb)
+        for j, xj in enumerate(xb):
+            np.min(xj, axis=0, out=lo[j, sl])  # padding rows repeat a row of the group
+            np.max(xj, axis=0, out=hi[j, sl])
+            if plan.centrable[j]:
+                centers[j, sl] = (flat(xj) if wb is None else flat(wb, xj)) / sw[sl]
+            scales[j, sl] = power_of_two_scale(np.maximum(hi[j, sl] - centers[j, sl],
+                                                          centers[j, sl] - lo[j, sl]))
+        column = _scaled_columns(plan, xb, centers[:, sl], scales[:, sl])
+        for i, q in enumerate(plan.moments):
+            col = column(q)
+            mom[i, sl] = sw[sl] if col is None else rsum(col if wb is None else wb * col)
+        # y about its group mean when the model has an intercept, which absorbs the shift
+        # exactly: the residuals then cancel only as much as the fit itself explains
+        if plan.icpt:
+            cy[sl] = (flat(yb) if wb is None else flat(wb, yb)) / sw[sl]
+            yb = np.subtract(yb, cy[sl], order="C")
+        else:
+            yb = np.array(yb, order="C")
+        wy = yb if wb is None else wb * yb
+        for e, q in enumerate(plan.powers):
+            col = column(q)
+            h[e, sl] = flat(wy) if col is None else flat(wy, col)
+        yy[sl] = rsum(wy * yb)
+    tops["lo"][gi] = lo.T
+    tops["hi"][gi] = hi.T
+
+    g = mom[plan.gram_index]
+    norms = np.sqrt(np.einsum("iin->in", g))
+    r_fac = _cholesky_upper(g / norms[:, None, :] / norms[None, :, :])
+    ok = np.all(norms > 0, axis=0) & np.all(np.einsum("iin->in", r_fac) > CHOLESKY_MIN_DIAG,
+                                            axis=0)
+    if not ok.all():
+        r_fac[:, :, ~ok] = np.eye(p)[:, :, None]
+        norms[:, ~ok] = 1.0
+    r_inv = _upper_inverse(r_fac)
+    cn = _mm(r_inv, r_inv.transpose(1, 0, 2))  # (G_n)^-1, unit-column basis
+    b0 = _mv(cn, h / norms) / norms
+
+    # residuals row by row, then one correction step b0 + C T'W r (corrected semi-normal
+    # equations): the step sees the design itself, not the rounded Gram matrix
+    sse0 = np.empty(n_g)
+    s_n = np.empty((p, n_g))
+    for sl in blocks:
+        xb, yb, wb = _block_rows(m, gi[sl], n_used, start, xcols, ys, ws, True)
+        column = _scaled_columns(plan, xb, centers[:, sl], scales[:, sl])
+        r = np.subtract(yb, cy[sl], order="C") if plan.icpt else np.array(yb, order="C")
+        tmp = np.empty_like(r)
+        for e, q in enumerate(plan.powers):
+            col = column(q)
+            if col is None:
+                r -= b0[e, sl]
+            else:
+                np.multiply(col, b0[e, sl], out=tmp)
+                r -= tmp
+        wr = r if wb is None else np.multiply(wb, r, out=tmp)
+        sse0[sl] = rsum(wr * r)
+        for e, q in enumerate(plan.powers):
+            col = column(q)
+            s_n[e, sl] = rsum(wr) if col is None else rsum(wr * col)
+    s_n /= norms
+    d_n = _mv(cn, s_n)
+    sse = sse0 - np.einsum("in,in->n", d_n, s_n)  # at b0 + d, to second order
+
+    mh, ml = _raw_map(plan, centers, scales)
+    beta = _raw_beta(plan, mh, ml, b0, d_n / norms, cy if plan.icpt else None)
+    u = _mm(mh, cn / norms[:, None, :] / norms[None, :, :])  # row k: (C v_k)'
+    ur = _mm(mh / norms[None, :, :], r_inv)
+    q_var = np.einsum("kjn,kjn->kn", ur, ur)
+    df = n - p
+    s2 = sse / df
+    r2 = 1.0 - sse / yy  # yy: about the mean with an intercept (two-pass), else about 0
+    adj = 1.0 - (1.0 - r2) * (n - int(plan.icpt)) / df
+    bound = _first_bound(plan, m, n_sum, dict(
+        norms=norms, r_fac=r_fac, r_inv=r_inv, b0=b0, d_n=d_n, s_n=s_n, sse0=sse0, sse=sse,
+        sst=yy, r2=r2, sw=sw, cy=cy, beta=beta, mh=mh, u=u, q=q_var))
+    return {"beta": beta.T, "se": np.sqrt(q_var * s2).T, "r2": r2, "adj": adj,
+            "rmse": np.sqrt(s2), "bound": np.where(ok, bound, np.inf)}
+
+
+def _first_bound(plan: _Plan, m: int, n_sum: int, v: dict) -> np.ndarray:
+    """First-order estimate of the worst relative error among the first stage's reported
+    estimates, standard errors, residual SD and R^2 of each group (inf where undefined),
+    with respect to the exact least-squares answer for the stored data.
+
+    Rounding, for groups of m (padded) rows and highest degree d: a scaled monomial of
+    degree j errs by (2j - 1) eps (its predictors' centering, then j - 1 products); a row
+    sum by at most g_sum = (n_sum + 4d + 2) eps times its sum of absolute terms (n_sum from
+    ``_row_summer``, the terms' own rounding on top), so |dG_n| <= g_sum (unit columns,
+    Cauchy-Schwarz) and each entry of T_n'W r errs by g_sum ||r||; each residual (y
+    centered, then p products and subtractions, on the rounded monomials) errs by
+    g_row = (2p + 2d) eps times |y| + |T||b|, in norm dr <= g_row (||y|| + sum |b_n|).
+    Cholesky: backward error (p + 1) eps |R'||R|. The correction step contracts the first
+    solution's error by rho <= ||G_n^-1|| ||dG_n + E|| and leaves the error C (T'W dr +
+    summation): in raw coefficient k at most sqrt(q_k) dr (q_k = v_k'C v_k; Cauchy-Schwarz
+    on the functional) plus g_sum ||r|| sum_e |(C v_k)_e| norm_e. The residual sum of
+    squares is summed from the rounded residuals; the variance factors q_k come from R of
+    the rounded Gram matrix (``_q_error``).
+    """
+    p, deg = len(plan.powers), plan.degree
+    norms, r_inv, d_n, s_n = v["norms"], v["r_inv"], v["d_n"], v["s_n"]
+    u, q, sse, sst = v["u"], v["q"], v["sse"], v["sst"]
+    g_sum = (n_sum + 4 * deg + 2) * EPS
+    g_row = (2 * p + 2 * deg) * EPS
+    rinv2 = np.einsum("ijn,ijn->n", r_inv, r_inv)  # ||R^-1||_F^2 >= ||G_n^-1||_2
+    rho = p * (g_sum + (p + 3) * EPS) * rinv2
+    rnorm = np.sqrt(np.maximum(v["sse0"], 0.0))
+    dnorm = np.sqrt(np.einsum("in,in->n", d_n, d_n))
+    snorm = np.sqrt(np.einsum("in,in->n", s_n, s_n))
+    dr = g_row * (np.sqrt(sst) + np.sum(np.abs(v["b0"] * norms), axis=0))
+    abs_m, abs_u = np.abs(v["mh"]), np.abs(u)
+    left = rho / (1 - rho) * dnorm  # what the step leaves of the first solution's error
+    err_beta = (np.einsum("kjn,jn->kn", abs_m, 1.0 / norms) * left
+                + np.sqrt(q) * dr + g_sum * rnorm * np.einsum("kjn,jn->kn", abs_u, norms)
+                + 16 * p * EPS * EPS * _mv(abs_m, np.abs(v["b0"])))
+    rel_beta = err_beta / np.abs(v["beta"]) + 2 * EPS
+    # normwise error of the solution (unit-column basis), for the second-order terms
+    err_n = left + np.sqrt(rinv2) * dr + rinv2 * np.sqrt(p) * g_sum * rnorm
+    sse_err = (2 * rnorm * dr + dr * dr + g_sum * v["sse0"] + p * err_n**2
+               + dnorm * (rho * snorm + 2 * np.sqrt(p) * (g_sum * rnorm + dr)))
+    rel_sse = sse_err / sse + EPS
+    if plan.icpt:
+        # two-pass about the rounded mean cy: bias sw (error of cy)^2, that error at most
+        # (m + 1) eps sum w|y| / sw + m eps |cy| (sum w rounded too), and
+        # sum w|y| / sw <= sqrt(sst / sw) + |cy|
+        d_cy = (m + 1) * EPS * (np.sqrt(sst / v["sw"]) + 2 * np.abs(v["cy"]))
+        rel_sst = g_sum + 2 * EPS + v["sw"] * d_cy**2 / sst
+    else:
+        rel_sst = g_sum
+    rel_r2 = (rel_sse + rel_sst) * (sse / sst) / np.abs(v["r2"]) + EPS
+    rel_q = (_q_error(p, norms, v["r_fac"], r_inv, u, q, g_sum)
+             + 2 * EPS * np.einsum("kjn,kjn->kn", abs_m, abs_u) / q)
+    rel_se = (rel_q + rel_sse) / 2 + 2 * EPS
+    worst = np.maximum(np.max(rel_beta, axis=0), np.max(rel_se, axis=0))
+    worst = np.maximum(worst, np.maximum(rel_sse / 2 + 2 * EPS, rel_r2))
+    worst = np.where((rho < 0.01) & (sse > 0) & (sst > 0), worst, np.inf)
     return np.where(np.isfinite(worst), worst, np.inf)
 
 
@@ -799,7 +1115,7 @@ def fit_groups(
     spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
                        intercept=bool(intercept))
     _columns(spec)
-    codes, keys = group_codes(group)
+    codes, keys = group_codes(group, copy=False)
     if len(codes) != n_rows:
         raise ModelError(f"group has {len(codes)} rows but y has {n_rows}")
     return _fit_coded(spec, codes, keys, yv, xv, wv, float(level), x_range)
@@ -827,11 +1143,20 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
     n_groups = len(keys)
     p = spec.n_params
     k = spec.k
-    used = ~(np.isnan(yv) | np.isnan(xv).any(axis=1))
-    if wv is not None:
-        used &= ~np.isnan(wv)
-    n_used = np.bincount(codes[used], minlength=n_groups)
-    n_dropped = np.bincount(codes, minlength=n_groups) - n_used
+    # the common case first: every number finite (and every weight positive)
+    every_row = bool(np.isfinite(yv).all() and np.isfinite(xv).all()
+                     and (wv is None or (np.isfinite(wv).all() and (wv > 0).all())))
+    order = None
+    if every_row:
+        order, n_used = _group_order(codes, n_groups)
+        used = None
+        n_dropped = np.zeros(n_groups, dtype=n_used.dtype)
+    else:
+        used = ~(np.isnan(yv) | np.isnan(xv).any(axis=1))
+        if wv is not None:
+            used &= ~np.isnan(wv)
+        n_used = np.bincount(codes[used], minlength=n_groups)
+        n_dropped = np.bincount(codes, minlength=n_groups) - n_used
     flags: dict[int, list[str]] = {}
     bad = np.zeros(n_groups, dtype=bool)
 
@@ -842,12 +1167,12 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
                 bad[g] = True
 
     for what, arr in (("y", yv), ("x", xv), ("weights", wv)):
-        if arr is not None:
+        if arr is not None and not every_row:
             inf = np.isinf(arr)
             inf = (inf.any(axis=1) if inf.ndim == 2 else inf) & used
             if inf.any():
                 flag_groups(inf, f"not fitted: {what} has an infinite value")
-    if wv is not None:
+    if wv is not None and not every_row:
         nonpos = used & ~(wv > 0)
         if nonpos.any():
             flag_groups(nonpos, "not fitted: weights must be positive numbers")
@@ -857,14 +1182,20 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
             f"needs at least {p + 1}")
         bad[g] = True
 
-    # the rows of every group still in play, sorted by group
-    sel = used & ~bad[codes]
-    rows = np.flatnonzero(sel)
-    rc = codes[rows]
-    rows = rows[_stable_order(rc, n_groups)]
-    xs = xv[rows]
-    ys = yv[rows]
-    ws = None if wv is None else wv[rows]
+    # the rows of every group still in play, sorted by group (one column at a time)
+    if every_row and not bad.any():
+        rows = order
+    elif every_row:  # filtering keeps the order sorted
+        keep = ~bad[codes]
+        rows = np.flatnonzero(keep) if order is None else order[keep[order]]
+    else:
+        rows = np.flatnonzero(used & ~bad[codes])
+        order = _group_order(codes[rows], n_groups)[0]
+        rows = rows if order is None else rows[order]
+    xcols = [np.ascontiguousarray(xv[:, j]) if rows is None else np.take(xv[:, j], rows)
+             for j in range(k)]
+    ys = yv if rows is None else np.take(yv, rows)
+    ws = wv if rows is None or wv is None else np.take(wv, rows)
     count = np.where(bad, 0, n_used)
     start = np.cumsum(count) - count
 
@@ -873,31 +1204,39 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
     r2 = np.full(n_groups, np.nan)
     adj = np.full(n_groups, np.nan)
     rmse = np.full(n_groups, np.nan)
-    method = np.zeros(n_groups, dtype=np.int8)  # 0 not fitted, 1 batched, 2 single fit
+    method = np.zeros(n_groups, dtype=np.int8)  # index into _METHODS (0: not fitted)
 
     plan = _plan(spec)
     live = np.flatnonzero(~bad)
     large = live[n_used[live] >= CHOLESKY_MIN_ROWS]
-    batch = live[n_used[live] < CHOLESKY_MIN_ROWS]
-    single = [large]
-    tops = _group_extremes(count, start, xs, ys, ws)
-    if len(batch):
-        with np.errstate(all="ignore"):  # groups that fail are passed on, not warned about
-            out = _batched(plan, batch, n_used, start, xs, ys, ws, tops)
+    rest = live[n_used[live] < CHOLESKY_MIN_ROWS]
+    # predictor ranges per group (NaN where not fitted), for the scales and the flags
+    tops = {"lo": np.full((n_groups, k), np.nan), "hi": np.full((n_groups, k), np.nan)}
+    _group_ranges(tops, large, n_used, start, xcols)
+
+    def take(out: dict, groups: np.ndarray, stage: int) -> np.ndarray:
         acc = out["accept"]
-        ga = batch[acc]
+        ga = groups[acc]
         est[ga] = out["beta"][acc]
         se[ga] = out["se"][acc]
         r2[ga] = out["r2"][acc]
         adj[ga] = out["adj"][acc]
         rmse[ga] = out["rmse"][acc]
-        method[ga] = 1
-        single.append(batch[~acc])
+        method[ga] = stage
+        return groups[~acc]
+
+    # groups that fail a stage are passed on to the next, not warned about
+    if len(rest):
+        with np.errstate(all="ignore"):
+            rest = take(_first_stage(plan, rest, n_used, start, xcols, ys, ws, tops), rest, 1)
+    if len(rest):
+        with np.errstate(all="ignore"):
+            rest = take(_batched(plan, rest, n_used, start, xcols, ys, ws, tops), rest, 2)
 
     # the rest, one group at a time with the single fit (exact path where needed)
-    for g in np.concatenate(single).tolist():
+    for g in np.concatenate([large, rest]).tolist():
         sl = slice(start[g], start[g] + n_used[g])
-        xg = xs[sl]
+        xg = np.column_stack([xc[sl] for xc in xcols])
         text = _polynomial_shortage(spec, xg)
         if text is None:
             try:
@@ -913,14 +1252,16 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
                 est[g] = res.estimates
                 se[g] = res.std_errors
                 r2[g], adj[g], rmse[g] = res.stats.r2, res.stats.adj_r2, res.stats.rmse
-                method[g] = 2
+                method[g] = 3
                 for note in res.notes:
                     if note.startswith("the design is badly conditioned"):
                         flags.setdefault(g, []).append("low accuracy: " + note)
         if text is not None:
             flags.setdefault(g, []).append(text)
 
-    if x_range is None:
+    if x_range is None and every_row and n_groups and not bad.any():
+        x_range = (tops["lo"].min(axis=0), tops["hi"].max(axis=0))  # every row is finite
+    elif x_range is None:
         x_range = finite_range(yv, xv, wv)
     _range_flags(spec, flags, method, tops, x_range)
     return _assemble(spec, keys, n_used, n_dropped, est, se, r2, adj, rmse, flags, method,
@@ -928,8 +1269,10 @@ def _fit_coded(spec: ModelSpec, codes: np.ndarray, keys: list, yv: np.ndarray,
 
 
 def _batched(plan: _Plan, batch: np.ndarray, n_used: np.ndarray, start: np.ndarray,
-             xs: np.ndarray, ys: np.ndarray, ws: np.ndarray | None, tops: dict) -> dict:
-    """The batched path for the groups ``batch`` (rows sorted by group in xs, ys, ws)."""
+             xcols: list[np.ndarray], ys: np.ndarray, ws: np.ndarray | None,
+             tops: dict) -> dict:
+    """The double-double stage for the groups ``batch`` (rows sorted by group in the
+    predictor columns xcols, ys, ws)."""
     n_b, k, p = len(batch), plan.spec.k, len(plan.powers)
     sums = {name: np.empty(shape) for name, shape in (
         ("centers", (n_b, k)), ("scales", (n_b, k)),
@@ -937,30 +1280,13 @@ def _batched(plan: _Plan, batch: np.ndarray, n_used: np.ndarray, start: np.ndarr
         ("ymom_h", (n_b, p)), ("ymom_l", (n_b, p)), ("yy_h", n_b), ("yy_l", n_b),
         ("m", n_b), ("aw", n_b), ("ay", n_b))}
     tops = {key: v[batch] for key, v in tops.items()}
-    xcols = [np.ascontiguousarray(xs[:, j]) for j in range(k)]
-    sizes = n_used[batch]
-    counts = np.bincount(sizes)
-    shared = counts[sizes] >= 256  # enough groups of this exact size for blocks of their own
-    sizes = np.where(shared, sizes, _bucket_size(sizes))
     work = np.empty(2 * (len(plan.moments) + p + 1) * _BLOCK_ROWS)
-    for m in np.unique(sizes).tolist():
-        members = np.flatnonzero(sizes == m)
-        step = max(1, _BLOCK_ROWS // m)
-        ar = np.arange(m)
-        for a in range(0, len(members), step):
-            pos = members[a:a + step]
-            gi = batch[pos]
-            nb = n_used[gi]
-            # padding rows repeat the group's last row (same range) with weight 0
-            idx = start[gi][:, None] + np.minimum(ar, nb[:, None] - 1)
-            pad = ar >= nb[:, None]
-            if ws is not None:
-                wb = np.where(pad, 0.0, ws[idx])
-            else:
-                wb = (~pad).astype(float) if pad.any() else None
-            blk_tops = {key: tops[key][pos] for key in ("lo", "hi", "w", "wy", "y")}
-            _block_moments(plan, [xc[idx] for xc in xcols], ys[idx], wb, ws is not None,
-                           blk_tops, sums, pos, work)
+    for m, pos in _row_blocks(n_used[batch], _BLOCK_ROWS):
+        xb, yb, wb = _block_rows(m, batch[pos], n_used, start, xcols, ys, ws)
+        blk_tops = {"lo": tops["lo"][pos], "hi": tops["hi"][pos],
+                    "y": np.max(np.abs(yb), axis=1),
+                    "w": None if ws is None else np.max(wb, axis=1)}
+        _block_moments(plan, xb, yb, wb, ws is not None, blk_tops, sums, pos, work)
     chunk = max(256, (1 << 20) // p**2)
     parts = [_solve_groups(plan, {key: v[a:a + chunk] for key, v in sums.items()},
                            n_used[batch[a:a + chunk]]) for a in range(0, n_b, chunk)]
@@ -980,29 +1306,14 @@ def _polynomial_shortage(spec: ModelSpec, xg: np.ndarray) -> str | None:
             f"{spec.degree + 1} distinct x values; found {distinct}")
 
 
-def _group_extremes(count, start, xs, ys, ws) -> dict:
-    """Per group (NaN where it has no rows): lowest and highest x, max|y|, max w, max|w y|,
-    each one pass over the rows sorted by group."""
-    n_groups = len(count)
-    live = np.flatnonzero(count > 0)  # their rows tile xs in order
-    st = start[live]
-    out = {"lo": np.full((n_groups, xs.shape[1]), np.nan),
-           "hi": np.full((n_groups, xs.shape[1]), np.nan)}
-    for key in ("y", "w", "wy"):
-        out[key] = np.full(n_groups, np.nan)
-    if not len(live):
-        return out
-    out["lo"][live] = np.minimum.reduceat(xs, st, axis=0)
-    out["hi"][live] = np.maximum.reduceat(xs, st, axis=0)
-    ay = np.abs(ys)
-    out["y"][live] = np.maximum.reduceat(ay, st)
-    if ws is None:
-        out["w"][live] = 1.0
-        out["wy"] = out["y"]
-    else:
-        out["w"][live] = np.maximum.reduceat(ws, st)
-        out["wy"][live] = np.maximum.reduceat(ws * ay, st)
-    return out
+def _group_ranges(tops: dict, groups: np.ndarray, n_used, start, xcols) -> None:
+    """Lowest and highest value of each predictor of ``groups`` (each of at least
+    CHOLESKY_MIN_ROWS rows, so few) into ``tops["lo"]`` and ``tops["hi"]``."""
+    for g in groups.tolist():
+        sl = slice(start[g], start[g] + n_used[g])
+        for j, xc in enumerate(xcols):
+            tops["lo"][g, j] = xc[sl].min()
+            tops["hi"][g, j] = xc[sl].max()
 
 
 def _range_flags(spec, flags, method, tops, x_range) -> None:
@@ -1019,16 +1330,19 @@ def _range_flags(spec, flags, method, tops, x_range) -> None:
         flags.setdefault(int(fitted[i]), []).append("extrapolation-prone: " + "; ".join(parts))
 
 
+#: The stage that answered each group (``GroupsResult.methods``).
+_METHODS = ("", "batched", "refined", "single")
+
+
 def _assemble(spec, keys, n_used, n_dropped, est, se, r2, adj, rmse, flags, method,
               level) -> GroupsResult:
     texts = [""] * len(keys)
     for g, parts in flags.items():
         texts[g] = "; ".join(parts)
-    names = ("", "batched", "single")
     return GroupsResult(
         spec=spec, groups=tuple(keys), n_used=n_used, n_dropped=n_dropped, estimates=est,
         std_errors=se, r2=r2, adj_r2=adj, rmse=rmse, flags=tuple(texts),
-        methods=tuple(names[v] for v in method.tolist()), level=level)
+        methods=tuple(np.array(_METHODS, dtype=object)[method].tolist()), level=level)
 
 
 # --- the result ----------------------------------------------------------------------------
@@ -1045,7 +1359,8 @@ def _key_json(key):
 class GroupsResult:
     """One fit per group, in group order. Arrays have one row per group; coefficient arrays
     one column per term (``terms``); NaN where a group was not fitted (``flags`` says why).
-    ``methods``: "batched", "single" (the single-group fit) or "" (not fitted)."""
+    ``methods``: the stage that answered: "batched" (double precision), "refined" (double-
+    double), "single" (the single-group fit) or "" (not fitted)."""
 
     spec: ModelSpec
     groups: tuple
