@@ -276,9 +276,12 @@ def _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst
 
 
 def _too_large(y: np.ndarray, x: np.ndarray) -> str:
-    big = max(float(np.max(np.abs(y))), float(np.max(np.abs(x))))
-    return (f"the numbers are too large for double precision once squared (up to {big:.3g}); "
-            "rescale the data, e.g. work in thousands or millions")
+    vals = np.abs(np.concatenate([np.ravel(y), np.ravel(x)]))
+    vals = vals[np.isfinite(vals) & (vals > 0)]
+    lo, hi = (float(vals.min()), float(vals.max())) if vals.size else (0.0, 0.0)
+    return (f"the numbers (magnitudes {lo:.3g} to {hi:.3g}) overflow double precision when "
+            "squared or raised to the model's powers; rescale the data, e.g. work in "
+            "thousands, millions or other units")
 
 
 def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
