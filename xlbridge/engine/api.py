@@ -25,6 +25,28 @@ def _names_of(obj) -> tuple[str, ...] | None:
     return None
 
 
+def arrays(y, x, weights=None) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """y as (n,), x as (n, k) and weights as (n,) float arrays, shapes checked."""
+    yv = _as_float(y, "y")
+    xv = _as_float(x, "x")
+    if yv.ndim == 2 and 1 in yv.shape:
+        yv = yv.ravel()
+    if yv.ndim != 1:
+        raise ModelError(f"y must be one column of numbers; got shape {yv.shape}")
+    if xv.ndim == 1:
+        xv = xv.reshape(-1, 1)
+    if xv.ndim != 2:
+        raise ModelError(f"x must be one column or a block of columns; got shape {xv.shape}")
+    if xv.shape[0] != len(yv):
+        raise ModelError(f"y has {len(yv)} rows but x has {xv.shape[0]} rows")
+    wv = None
+    if weights is not None:
+        wv = _as_float(weights, "weights").ravel()
+        if len(wv) != len(yv):
+            raise ModelError(f"weights has {len(wv)} rows but y has {len(yv)}")
+    return yv, xv, wv
+
+
 def _few_distinct(col: np.ndarray, need: int) -> bool:
     """True unless ``col`` has at least ``need`` distinct values (stops as soon as it does)."""
     seen: set[float] = set()
@@ -77,23 +99,7 @@ def fit(
         names = _names_of(x)
     response = _names_of(y)
     response = response[0] if response else "y"
-    yv = _as_float(y, "y")
-    xv = _as_float(x, "x")
-    if yv.ndim == 2 and 1 in yv.shape:
-        yv = yv.ravel()
-    if yv.ndim != 1:
-        raise ModelError(f"y must be one column of numbers; got shape {yv.shape}")
-    if xv.ndim == 1:
-        xv = xv.reshape(-1, 1)
-    if xv.ndim != 2:
-        raise ModelError(f"x must be one column or a block of columns; got shape {xv.shape}")
-    if xv.shape[0] != len(yv):
-        raise ModelError(f"y has {len(yv)} rows but x has {xv.shape[0]} rows")
-    wv = None
-    if weights is not None:
-        wv = _as_float(weights, "weights").ravel()
-        if len(wv) != len(yv):
-            raise ModelError(f"weights has {len(wv)} rows but y has {len(yv)}")
+    yv, xv, wv = arrays(y, x, weights)
     spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
                        intercept=bool(intercept))
 

@@ -49,7 +49,7 @@ import numpy as np
 from scipy import sparse
 
 from . import inference
-from .api import _as_float, _names_of, fit
+from .api import _names_of, arrays, fit
 from .result import _plain
 from .solve import (
     ACCEPT_ERROR,
@@ -1094,24 +1094,8 @@ def fit_groups(
         raise ModelError(f"level must be between 0 and 1 (e.g. 0.95); got {level!r}")
     if names is None:
         names = _names_of(x)
-    yv = _as_float(y, "y")
-    xv = _as_float(x, "x")
-    if yv.ndim == 2 and 1 in yv.shape:
-        yv = yv.ravel()
-    if yv.ndim != 1:
-        raise ModelError(f"y must be one column of numbers; got shape {yv.shape}")
-    if xv.ndim == 1:
-        xv = xv.reshape(-1, 1)
-    if xv.ndim != 2:
-        raise ModelError(f"x must be one column or a block of columns; got shape {xv.shape}")
+    yv, xv, wv = arrays(y, x, weights)
     n_rows = len(yv)
-    if xv.shape[0] != n_rows:
-        raise ModelError(f"y has {n_rows} rows but x has {xv.shape[0]} rows")
-    wv = None
-    if weights is not None:
-        wv = _as_float(weights, "weights").ravel()
-        if len(wv) != n_rows:
-            raise ModelError(f"weights has {len(wv)} rows but y has {n_rows}")
     spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
                        intercept=bool(intercept))
     _columns(spec)
