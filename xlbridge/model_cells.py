@@ -209,7 +209,7 @@ def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
     if k not in KINDS:
         raise CellError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
     inp = prepare_fit(y, x, 1 if k == "degrees" else model, options)
-    res = fit_prepared(inp)
+    res = None if k == "degrees" else fit_prepared(inp)
     try:
         if k == "degrees":
             top = _max_degree(model)

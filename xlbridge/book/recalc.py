@@ -31,6 +31,7 @@ from xlbridge.book.xbcall import (
     Spill,
     Unsupported,
     calls_xb,
+    end_of_quoted,
     parse_xb_formula,
 )
 
@@ -194,9 +195,6 @@ def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str) -
 
 # --- references inside ordinary formulas (dependency detection only) -------------------
 
-_SPLIT = re.compile(r"""("(?:[^"]|"")*")|('(?:[^']|'')*'!)|([(),+\-*/^&=<>;{}%\s])""")
-
-
 def _formula_refs(text: str) -> list[str]:
     """Tokens of a formula that may be references (used to find dependencies, not to
     compute anything)."""
@@ -208,25 +206,15 @@ def _formula_refs(text: str) -> list[str]:
     while i < len(body):
         ch = body[i]
         if ch == '"':
-            j = i + 1
-            while j < len(body) and not (body[j] == '"' and body[j + 1 : j + 2] != '"'):
-                j += 2 if body[j] == '"' else 1
-            i = j + 1
+            i = end_of_quoted(body, i)
             if cur:
                 tokens.append(cur)
             cur = ""
             continue
         if ch == "'" and depth == 0:
-            j = i + 1
-            while j < len(body):
-                if body[j] == "'":
-                    if body[j + 1 : j + 2] == "'":
-                        j += 2
-                        continue
-                    break
-                j += 1
-            cur += body[i : j + 1]
-            i = j + 1
+            j = end_of_quoted(body, i)
+            cur += body[i:j]
+            i = j
             continue
         if ch == "[":
             depth += 1

@@ -95,6 +95,20 @@ def calls_xb(formula: str) -> bool:
     return bool(_XB_ANYWHERE.search(_strip_strings(formula)))
 
 
+def end_of_quoted(s: str, i: int) -> int:
+    """Index just past the quoted run starting at ``s[i]`` (a ``"`` text or a ``'`` sheet
+    name), where a doubled quote stands for one; ``len(s)`` when it is never closed."""
+    q, j = s[i], i + 1
+    while j < len(s):
+        if s[j] == q:
+            if s[j + 1 : j + 2] == q:
+                j += 2
+                continue
+            return j + 1
+        j += 1
+    return len(s)
+
+
 def _strip_strings(text: str) -> str:
     return re.sub(r'"(?:[^"]|"")*"', '""', text)
 
@@ -235,15 +249,7 @@ class _Parser:
         while i < len(s):
             ch = s[i]
             if ch == "'" and depth == 0:
-                j = i + 1
-                while j < len(s):
-                    if s[j] == "'":
-                        if j + 1 < len(s) and s[j + 1] == "'":
-                            j += 2
-                            continue
-                        break
-                    j += 1
-                i = j + 1
+                i = end_of_quoted(s, i)
                 continue
             if ch == "[":
                 depth += 1
