@@ -4,10 +4,23 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from decimal import Decimal
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, settings
+
+# Property tests are reproducible and bounded: the same examples on every run (derandomize),
+# no example database carried between runs, and a deadline per example, so the suite's time
+# never depends on the luck of a random seed or a long shrink. XB_HYPOTHESIS=explore turns
+# randomisation back on for a local bug hunt.
+settings.register_profile(
+    "ci", derandomize=True, database=None, deadline=5000, print_blob=True,
+    suppress_health_check=[HealthCheck.too_slow])
+settings.register_profile("explore", deadline=5000, suppress_health_check=[HealthCheck.too_slow])
+settings.load_profile("explore" if os.environ.get("XB_HYPOTHESIS") == "explore"
+                      else "ci")
 
 REPO = Path(__file__).resolve().parents[1]
 NIST_DIR = REPO.parent / "shared" / "reference" / "nist_strd"

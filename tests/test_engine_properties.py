@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from xlbridge import ModelError, fit
 from xlbridge.engine.exact import bareiss_solve, dyadic
 
-FAST = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+FAST = settings(max_examples=25, suppress_health_check=[HealthCheck.too_slow])
 
 
 def _data(seed: int, n: int = 25):

@@ -392,7 +392,7 @@ def _normal(v):
     return (type(v).__name__, v)
 
 
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=150)
 @given(st.lists(_KEY, min_size=0, max_size=40), st.randoms(use_true_random=False))
 def test_group_codes_property(values, rnd):
     """Rows share a code exactly when their keys are the same group (reference: a plain
@@ -415,7 +415,7 @@ def test_group_codes_property(values, rnd):
     assert [keys2[c] for c in codes2] == [keys[codes[i]] for i in perm]
 
 
-@settings(max_examples=40, deadline=None)
+@settings(max_examples=40)
 @given(st.lists(st.tuples(_KEY, st.floats(-10, 10), st.floats(-10, 10)), max_size=30))
 def test_fit_groups_never_raises_on_any_keys(rows):
     """Any mix of keys and values: a table with one row per group, never an exception."""

@@ -117,7 +117,7 @@ _cell = st.one_of(st.none(), st.floats(allow_nan=True, allow_infinity=True), st.
                   st.booleans(), st.integers(-2146826281, -2146826200))
 
 
-@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=40, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.tuples(_cell, _cell), min_size=0, max_size=25),
        st.sampled_from(["XB_DEGREES", "XB_CHECKS", "XB_ROWS", "XB_OPTIMUM"]))
 def test_any_cells_give_a_table_or_a_message(pairs, name):

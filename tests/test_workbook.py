@@ -199,7 +199,7 @@ def test_xlsm_input_is_read(tmp_path: Path) -> None:
     assert open_book(path).xlwings_value(open_book(path).resolve("S!A1:B1")) == [1.0, 2.0]
 
 
-@settings(max_examples=25, deadline=None,
+@settings(max_examples=25,
           suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.lists(st.lists(st.one_of(
     st.none(), st.floats(allow_nan=False, allow_infinity=False, width=64),

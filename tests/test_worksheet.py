@@ -243,7 +243,7 @@ def assert_table_or_message(result):
         assert "internal error" not in result[0][0], result[0][0]
 
 
-@settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=120, suppress_health_check=[HealthCheck.too_slow])
 @given(st.integers(min_value=0, max_value=25).flatmap(
     lambda n: st.lists(st.lists(cell_values, min_size=3, max_size=3), min_size=n,
                        max_size=n)), models, option_texts, st.integers(1, 2))
@@ -257,7 +257,7 @@ def test_any_block_gives_a_table_or_a_message(block, model, options, k):
             assert_table_or_message(result)
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=60)
 @given(st.lists(cell_values, min_size=0, max_size=12), st.lists(cell_values, max_size=12))
 def test_any_flat_lists_give_a_table_or_a_message(y, x):
     with np.errstate(all="ignore"):
@@ -278,7 +278,7 @@ def damaged_blocks(draw):
     return block
 
 
-@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=100, suppress_health_check=[HealthCheck.too_slow])
 @given(damaged_blocks(), models, option_texts, st.integers(1, 2))
 def test_damaged_data_gives_a_table_or_a_message(block, model, options, k):
     y = [r[0] for r in block]
