@@ -1,0 +1,50 @@
+"""What a spreadsheet cell can hold, as plain rules: the error values and the date serials.
+
+The one home of these rules; the readers, the formula parser and the cell layer all use it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+
+__all__ = ["EPOCH", "ERROR_TEXTS", "is_error_text", "serial_of", "date_of"]
+
+#: Error values a spreadsheet program shows in a cell (the classic seven, the dynamic-array
+#: and data-type ones, and those of hosted runtimes). Anything else of the shape ``#WORD!``
+#: or ``#WORD?`` is taken as an error value too (:func:`is_error_text`).
+ERROR_TEXTS = frozenset({
+    "#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A", "#GETTING_DATA",
+    "#SPILL!", "#CALC!", "#FIELD!", "#BLOCKED!", "#CONNECT!", "#BUSY!", "#UNKNOWN!",
+    "#PYTHON!", "#TIMEOUT!",
+})
+_ERROR_LIKE = re.compile(r"#[A-Z][A-Z0-9_/]*[!?]")
+
+#: Day 0 of the 1900 date system as the spreadsheet counts it (serial 1 is 1900-01-01 only
+#: after the historical leap-day bug; from 1900-03-01 on, serial = days since this date).
+EPOCH = dt.datetime(1899, 12, 30)
+
+
+def is_error_text(text: str) -> bool:
+    """True for an error value shown as text (``#N/A``, ``#SPILL!`` ...) or a message of
+    ours (``xlbridge: ...``) fed back in as data."""
+    s = text.strip()
+    return (s.upper() in ERROR_TEXTS or bool(_ERROR_LIKE.fullmatch(s))
+            or s.lower().startswith("xlbridge:"))
+
+
+def serial_of(v: dt.date | dt.time | dt.timedelta) -> float:
+    """The serial number a date, date-time, time of day or duration cell holds."""
+    if isinstance(v, dt.datetime):
+        d = v.replace(tzinfo=None) - EPOCH
+        return d.days + (d.seconds + d.microseconds / 1e6) / 86400.0
+    if isinstance(v, dt.date):
+        return float((v - EPOCH.date()).days)
+    if isinstance(v, dt.timedelta):
+        return v.days + (v.seconds + v.microseconds / 1e6) / 86400.0
+    return (v.hour * 3600 + v.minute * 60 + v.second + v.microsecond / 1e6) / 86400.0
+
+
+def date_of(serial: float) -> dt.datetime:
+    """The date-time of a serial number (inverse of :func:`serial_of` for dates)."""
+    return EPOCH + dt.timedelta(days=serial)
