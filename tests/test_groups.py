@@ -18,7 +18,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from xlbridge import GroupsResult, ModelError, fit, fit_groups
-from xlbridge.engine import batch
+from xlbridge.engine import groups
+from xlbridge.engine.groups import first as stage_first
+from xlbridge.engine.groups import refined as stage_refined
+from xlbridge.engine.groups.stacks import make_plan, raw_map
 from xlbridge.engine.solve import ACCEPT_ERROR, Basis
 from xlbridge.engine.terms import parse_model
 
@@ -156,7 +159,7 @@ def test_first_stage_within_its_threshold(model, k, weights, shift, spread, nois
                           weights=weights)
     res = fit_groups(g, y, x, model, weights=w)
     assert res.methods.count("batched") >= 5
-    tol = batch.BATCH_ACCEPT + ACCEPT_ERROR
+    tol = groups.BATCH_ACCEPT + ACCEPT_ERROR
     for i, key in enumerate(res.groups):
         if res.methods[i] != "batched":
             continue
@@ -170,9 +173,9 @@ def test_first_stage_within_its_threshold(model, k, weights, shift, spread, nois
 def test_many_small_blocks_equal_to_single_fit(monkeypatch):
     """Chunks and row blocks of a few groups each (mixed sizes, padding, weights) give the
     same answers as one block."""
-    monkeypatch.setattr(batch, "_FIRST_CHUNK_ROWS", 200)
-    monkeypatch.setattr(batch, "_FIRST_BLOCK_ROWS", 64)
-    monkeypatch.setattr(batch, "_BLOCK_ROWS", 64)
+    monkeypatch.setattr(stage_first, "_FIRST_CHUNK_ROWS", 200)
+    monkeypatch.setattr(stage_first, "_FIRST_BLOCK_ROWS", 64)
+    monkeypatch.setattr(stage_refined, "_BLOCK_ROWS", 64)
     sizes = np.random.default_rng(4).integers(5, 70, 60)
     g, x, y, w = _grouped(9, len(sizes), sizes, weights=True)
     res = fit_groups(g, y, x, 2, weights=w)
@@ -248,10 +251,10 @@ def test_raw_map_equals_exact_basis_map():
     rng = np.random.default_rng(9)
     for model, k in ((4, 1), ("surface", 3), ("x1, x1^2, x2, x1*x2", 2)):
         spec = parse_model(model, k)
-        plan = batch._plan(spec)
+        plan = make_plan(spec)
         centers = rng.normal(0, 1000, (5, k)) * np.array(spec.centrable(), dtype=float)
         scales = np.ldexp(1.0, rng.integers(-3, 12, (5, k)))
-        mh, ml = batch._raw_map(plan, centers.T, scales.T)  # (p, p, groups)
+        mh, ml = raw_map(plan, centers.T, scales.T)  # (p, p, groups)
         for gi in range(5):
             exact = Basis(centers[gi], scales[gi], spec.all_powers).raw_map()
             for i, row in enumerate(exact):
@@ -349,7 +352,7 @@ def test_mixed_keys_order_and_merging():
     false/true, then the blank group (None, NaN, empty text, spaces)."""
     raw = [3, "b", None, 1.0, "B", True, dt.date(2024, 5, 1), "", float("nan"), 1, "a",
            False, -2.5, "  ", np.int64(3)]
-    codes, keys = batch.group_codes(raw)
+    codes, keys = groups.group_codes(raw)
     assert keys == [-2.5, 1.0, 3, dt.date(2024, 5, 1), "a", "B", "b", False, True, None]
     got = [keys[c] for c in codes]
     assert got == [3, "b", None, 1.0, "B", True, dt.date(2024, 5, 1), None, None, 1.0, "a",
@@ -357,22 +360,22 @@ def test_mixed_keys_order_and_merging():
 
 
 def test_keys_from_numpy_arrays():
-    codes, keys = batch.group_codes(np.array([2.0, np.nan, 7.0, 2.0]))
+    codes, keys = groups.group_codes(np.array([2.0, np.nan, 7.0, 2.0]))
     assert keys == [2.0, 7.0, None] and codes.tolist() == [0, 2, 1, 0]
-    codes, keys = batch.group_codes(np.array(["x", "A", "x"]))
+    codes, keys = groups.group_codes(np.array(["x", "A", "x"]))
     assert keys == ["A", "x"] and codes.tolist() == [1, 0, 1]
-    codes, keys = batch.group_codes(np.array([10**12, 5, 10**12]))
+    codes, keys = groups.group_codes(np.array([10**12, 5, 10**12]))
     assert keys == [5, 10**12] and codes.tolist() == [1, 0, 1]
-    codes, keys = batch.group_codes(np.array(["2024-01-02", "NaT", "2023-06-01"],
+    codes, keys = groups.group_codes(np.array(["2024-01-02", "NaT", "2023-06-01"],
                                              dtype="datetime64[ns]"))
     assert keys == [dt.datetime(2023, 6, 1), dt.datetime(2024, 1, 2), None]
 
 
 def test_bad_key_type_message():
     with pytest.raises(ModelError, match="group keys must be numbers, text, dates"):
-        batch.group_codes([1, [2, 3]])
+        groups.group_codes([1, [2, 3]])
     with pytest.raises(ModelError, match="group keys must be"):
-        batch.group_codes([1, (2, 3)])
+        groups.group_codes([1, (2, 3)])
 
 
 _KEY = st.one_of(
@@ -398,19 +401,19 @@ def test_group_codes_property(values, rnd):
     """Rows share a code exactly when their keys are the same group (reference: a plain
     normalisation written here); the keys come out in the documented order; shuffling the
     rows does not change any row's group."""
-    codes, keys = batch.group_codes(values)
+    codes, keys = groups.group_codes(values)
     assert len(codes) == len(values)
     assert sorted(set(codes.tolist())) == list(range(len(keys)))
     for i in range(len(values)):
         for j in range(len(values)):
             assert (codes[i] == codes[j]) == (_normal(values[i]) == _normal(values[j]))
-    order = [batch.group_sort_key(k) for k in keys]
+    order = [groups.group_sort_key(k) for k in keys]
     assert order == sorted(order) and len(set(order)) == len(order)
     if None in keys:
         assert keys[-1] is None
     perm = list(range(len(values)))
     rnd.shuffle(perm)
-    codes2, keys2 = batch.group_codes([values[i] for i in perm])
+    codes2, keys2 = groups.group_codes([values[i] for i in perm])
     assert keys2 == keys
     assert [keys2[c] for c in codes2] == [keys[codes[i]] for i in perm]
 
@@ -424,7 +427,7 @@ def test_fit_groups_never_raises_on_any_keys(rows):
     y = [r[2] for r in rows]
     res = fit_groups(g, y, x, 1)
     table = res.table()
-    assert len(table) == 1 + len(res) == 1 + len(batch.group_codes(g)[1])
+    assert len(table) == 1 + len(res) == 1 + len(groups.group_codes(g)[1])
     assert all(len(r) == len(res.columns) for r in table)
     json.dumps(res.to_dict())
 
@@ -476,7 +479,7 @@ def test_length_mismatch_errors():
 def test_combine_parts_equals_whole_and_refuses_split_groups():
     g, x, y, _ = _grouped(6, 30, np.full(30, 12))
     whole = fit_groups(g, y, x, 2)
-    rng = finite = batch.finite_range(y, x)
+    rng = finite = groups.finite_range(y, x)
     a, b = g < 15, g >= 15
     parts = [fit_groups(g[m], y[m], x[m], 2, x_range=rng) for m in (b, a)]
     both = GroupsResult.combine(parts)

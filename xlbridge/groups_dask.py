@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from .engine import GroupsResult, ModelError, parse_model
-from .engine.batch import finite_range, fit_groups, normalize_key
+from .engine.groups import finite_range, fit_groups, normalize_key
 
 __all__ = ["fit_groups_dask", "read_dataset"]
 

@@ -1,14 +1,35 @@
-"""Numerical core: model specs, accurate least squares, inference. No I/O, no xlwings."""
+"""Numerical core: model specs, accurate least squares, inference. No I/O, no xlwings.
+
+The grouped fit (``fit_groups``, ``GroupsResult``) is imported on first use, so importing
+the engine does not load it or scipy.sparse.
+"""
 
 from .api import fit
-from .batch import GroupsResult, fit_groups
 from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
+from .errors import ModelError, ModelErrorKind, check_level
 from .optimum import Optimum, Slopes, StationaryPoint, optimum, slopes
 from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction
 from .scan import DegreeRow, DegreeScan, scan_degrees
-from .terms import ModelError, ModelSpec, parse_model
+from .terms import ModelSpec, parse_model
 
 __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coefficient",
-           "CenteredForm", "Prediction", "ModelError", "ModelSpec", "parse_model", "checks",
-           "Check", "row_diagnostics", "RowDiagnostics", "scan_degrees", "DegreeScan", "DegreeRow",
-           "optimum", "Optimum", "StationaryPoint", "slopes", "Slopes"]
+           "CenteredForm", "Prediction", "ModelError", "ModelErrorKind", "check_level",
+           "ModelSpec", "parse_model", "checks", "Check", "row_diagnostics", "RowDiagnostics",
+           "scan_degrees", "DegreeScan", "DegreeRow", "optimum", "Optimum", "StationaryPoint",
+           "slopes", "Slopes"]
+
+_LAZY = {"fit_groups", "GroupsResult"}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        from . import groups
+
+        value = getattr(groups, name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'xlbridge.engine' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

@@ -7,15 +7,17 @@ import math
 import numpy as np
 
 from . import inference
+from .errors import ModelError, ModelErrorKind, check_level, distinct_shortage
 from .result import FitResult, Remedy
 from .solve import solve
-from .terms import ModelError, parse_model
+from .terms import parse_model
 
 SE_TYPES = ("ols", "hc0", "hc1", "hc2", "hc3")
 ERROR_TYPES = ("additive", "percent")
 
 
-def _names_of(obj) -> tuple[str, ...] | None:
+def names_of(obj) -> tuple[str, ...] | None:
+    """Column names of a pandas DataFrame, or the name of a Series; None otherwise."""
     cols = getattr(obj, "columns", None)
     if cols is not None:
         return tuple(str(c) for c in cols)
@@ -32,18 +34,20 @@ def arrays(y, x, weights=None) -> tuple[np.ndarray, np.ndarray, np.ndarray | Non
     if yv.ndim == 2 and 1 in yv.shape:
         yv = yv.ravel()
     if yv.ndim != 1:
-        raise ModelError(f"y must be one column of numbers; got shape {yv.shape}")
+        raise ModelError(f"y must be one column of numbers; got shape {yv.shape}",
+                         ModelErrorKind.DATA)
     if xv.ndim == 1:
         xv = xv.reshape(-1, 1)
     if xv.ndim != 2:
-        raise ModelError(f"x must be one column or a block of columns; got shape {xv.shape}")
+        raise ModelError(f"x must be one column or a block of columns; got shape {xv.shape}",
+                         ModelErrorKind.DATA)
     if xv.shape[0] != len(yv):
-        raise ModelError(f"y has {len(yv)} rows but x has {xv.shape[0]} rows")
+        raise ModelError(f"y has {len(yv)} rows but x has {xv.shape[0]} rows", ModelErrorKind.DATA)
     wv = None
     if weights is not None:
         wv = _as_float(weights, "weights").ravel()
         if len(wv) != len(yv):
-            raise ModelError(f"weights has {len(wv)} rows but y has {len(yv)}")
+            raise ModelError(f"weights has {len(wv)} rows but y has {len(yv)}", ModelErrorKind.DATA)
     return yv, xv, wv
 
 
@@ -61,7 +65,7 @@ def _as_float(a, what: str) -> np.ndarray:
     try:
         arr = np.asarray(a, dtype=float)
     except (TypeError, ValueError):
-        raise ModelError(f"{what} must hold numbers only") from None
+        raise ModelError(f"{what} must hold numbers only", ModelErrorKind.DATA) from None
     return arr
 
 
@@ -87,17 +91,18 @@ def fit(
     ``error='percent'`` (multiplicative error, IRLS with weights 1/fitted^2). Raises
     ModelError with what to fix.
     """
-    if not isinstance(level, (int, float)) or isinstance(level, bool) or not 0 < level < 1:
-        raise ModelError(f"level must be between 0 and 1 (e.g. 0.95); got {level!r}")
+    level = check_level(level)
     se = str(se).lower()
     if se not in SE_TYPES:
-        raise ModelError(f"se must be one of {', '.join(SE_TYPES)}; got {se!r}")
+        raise ModelError(f"se must be one of {', '.join(SE_TYPES)}; got {se!r}",
+                         ModelErrorKind.SPEC)
     error = str(error).lower()
     if error not in ERROR_TYPES:
-        raise ModelError(f"error must be one of {', '.join(ERROR_TYPES)}; got {error!r}")
+        raise ModelError(f"error must be one of {', '.join(ERROR_TYPES)}; got {error!r}",
+                         ModelErrorKind.SPEC)
     if names is None:
-        names = _names_of(x)
-    response = _names_of(y)
+        names = names_of(x)
+    response = names_of(y)
     response = response[0] if response else "y"
     yv, xv, wv = arrays(y, x, weights)
     spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
@@ -111,9 +116,9 @@ def fit(
             bad = np.isinf(arr.reshape(len(yv), -1)).any(axis=1) & used
             if bad.any():
                 row = int(np.argmax(bad)) + 1
-                raise ModelError(f"{what} has an infinite value in row {row}")
+                raise ModelError(f"{what} has an infinite value in row {row}", ModelErrorKind.DATA)
     if wv is not None and np.any(wv[used] <= 0):
-        raise ModelError("weights must be positive numbers")
+        raise ModelError("weights must be positive numbers", ModelErrorKind.DATA)
     n_dropped = int(np.count_nonzero(~used))
     if n_dropped:
         yu, xu = yv[used], xv[used]
@@ -124,15 +129,15 @@ def fit(
     if spec.kind == "polynomial" and _few_distinct(xu[:, 0], spec.degree + 1):
         distinct = len(np.unique(xu[:, 0]))
         if distinct < spec.degree + 1:
-            raise ModelError(f"degree {spec.degree} needs at least {spec.degree + 1} distinct "
-                             f"x values; found {distinct}")
+            raise ModelError(distinct_shortage(spec.degree, distinct), ModelErrorKind.SHORTAGE)
     if n <= p:
         raise ModelError(
             f"the model has {p} coefficients, so it needs at least {p + 1} rows with numbers "
-            f"(one more than the coefficients, to estimate the error); found {n}"
+            f"(one more than the coefficients, to estimate the error); found {n}",
+            ModelErrorKind.SHORTAGE
         )
     if wu is not None and not math.isfinite(float(np.sum(wu))):
-        raise ModelError("weights are too large")
+        raise ModelError("weights are too large", ModelErrorKind.SCALE)
     # overflow in extreme data is detected and reported as a message, not a warning
     with np.errstate(over="ignore", invalid="ignore"):
         return _fit_clean(spec, xu, yu, wu, float(level), used, n_dropped, response, se,
@@ -144,7 +149,8 @@ def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, erro
     if log:
         if np.any(yu <= 0):
             row = int(np.argmax(yv <= 0)) + 1
-            raise ModelError(f"log=yes needs every y above 0; row {row} has {yv[row - 1]:g}")
+            raise ModelError(f"log=yes needs every y above 0; row {row} has {yv[row - 1]:g}",
+                             ModelErrorKind.DATA)
         yu = np.log(yu)
     core = solve(xu, yu, wu, spec)
     iterations = 0
@@ -178,7 +184,7 @@ def _percent_error_fit(x, y, w, spec, core):
         fitted = y - core.residuals
         if np.any(fitted <= 0):
             raise ModelError("error=percent needs fitted values above 0 in every row; this "
-                             "model predicts 0 or less for some rows")
+                             "model predicts 0 or less for some rows", ModelErrorKind.DATA)
         wn = base / fitted**2
         new = solve(x, y, wn, spec)
         change = np.max(np.abs(new.beta - core.beta) / np.maximum(np.abs(new.beta), 1e-300))
@@ -186,4 +192,4 @@ def _percent_error_fit(x, y, w, spec, core):
         if change <= PERCENT_TOL:
             return core, wn, step
     raise ModelError(f"error=percent did not converge in {PERCENT_MAX_STEPS} reweighting steps; "
-                     "try a simpler model")
+                     "try a simpler model", ModelErrorKind.DATA)

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .inference import t_pvalue
+from .dist import t_pvalue
 from .result import FitResult
 from .solve import monomials
 

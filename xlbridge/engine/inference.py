@@ -6,38 +6,10 @@ import math
 
 import numpy as np
 
-from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction, Remedy
+from .dist import f_pvalue, t_pvalue, t_quantile
+from .result import CenteredForm, Coefficient, FitResult, FitStats, Note, NoteKind, Remedy
 from .solve import Core, choose_basis, monomials
 from .terms import ModelSpec, term_label
-
-
-def _special():
-    # scipy.special costs ~0.3 s to import; only fits that report p-values pay it
-    import scipy.special as sp
-
-    return sp
-
-
-def t_quantile(df: float, level: float) -> float:
-    """Two-sided critical value of Student's t for a ``level`` interval."""
-    return float(_special().stdtrit(df, 0.5 + level / 2)) if df > 0 else math.nan
-
-
-def t_pvalue(t: np.ndarray, df: float) -> np.ndarray:
-    """Two-sided p-value of t ratios."""
-    t = np.asarray(t, dtype=float)
-    if df <= 0:
-        return np.full(t.shape, np.nan)
-    return 2.0 * _special().stdtr(df, -np.abs(t))
-
-
-def f_pvalue(f: float, df1: float, df2: float) -> float:
-    """Upper tail of the F distribution."""
-    if not df1 > 0 or not df2 > 0 or math.isnan(f):
-        return math.nan
-    if math.isinf(f):
-        return 0.0
-    return float(_special().fdtrc(df1, df2, f))
 
 
 def vifs(inv_diag: np.ndarray, ss: np.ndarray) -> np.ndarray:
@@ -79,8 +51,8 @@ def build(
     n_dropped: int,
     response: str,
     remedy: Remedy | None = None,
-    extra_notes: tuple[str, ...] = (),
 ) -> FitResult:
+    """The ``FitResult`` of a solved fit: inference, statistics, centered form and notes."""
     remedy = remedy or Remedy()
     basis = core.basis
     n = len(y)
@@ -162,15 +134,18 @@ def build(
         std_errors=tuple(float(v) for v in np.sqrt(np.diag(cov_scaled)) / scale_e),
     )
 
-    notes = list(spec.notes) + list(remedy.notes) + list(extra_notes)
+    notes = ([Note(s, NoteKind.MODEL) for s in spec.notes]
+             + [Note(s, NoteKind.REMEDY) for s in remedy.notes])
     if core.method != "exact" and core.error_bound > 1e-10:
         digits = max(0.0, -math.log10(core.error_bound))
-        notes.append(f"the design is badly conditioned (condition number {core.cond:.3g}) and too "
-                     f"large for exact arithmetic: about {digits:.0f} significant digits are "
-                     "reliable; centering or fewer terms would help")
+        notes.append(Note(
+            f"the design is badly conditioned (condition number {core.cond:.3g}) and too "
+            f"large for exact arithmetic: about {digits:.0f} significant digits are "
+            "reliable; centering or fewer terms would help", NoteKind.ACCURACY))
     if df > 0 and n < 10 * p:
-        notes.append(f"{n} rows for {p} coefficients: fewer than 10 rows per coefficient "
-                     "(a common rule of thumb), so estimates may not hold up on new data")
+        notes.append(Note(f"{n} rows for {p} coefficients: fewer than 10 rows per coefficient "
+                          "(a common rule of thumb), so estimates may not hold up on new data",
+                          NoteKind.ROWS))
     hform = core.leverage if w is None else core.leverage / w
     return FitResult(
         spec=spec, coefficients=coefs, stats=stats, centered=centered, level=level,
@@ -231,46 +206,3 @@ def _top_term_p(spec: ModelSpec, b: np.ndarray, cov: np.ndarray, df: int) -> flo
     if math.isinf(f):
         return 0.0
     return f_pvalue(f, len(idx), df)
-
-
-def _new_points(res: FitResult, new_x) -> np.ndarray:
-    from .terms import ModelError
-
-    x0 = np.asarray(new_x, dtype=float)
-    k = res.spec.k
-    if x0.ndim <= 1:
-        x0 = x0.reshape(-1, 1) if k == 1 else x0.reshape(1, -1)
-    if x0.ndim != 2 or x0.shape[1] != k:
-        raise ModelError(f"new x has {x0.shape[-1]} columns; the model has {k} predictors")
-    return x0
-
-
-def extrapolates(res: FitResult, x0: np.ndarray, form: np.ndarray) -> np.ndarray:
-    """Outside the observed range of any predictor or, with 2+ predictors, leverage above
-    the largest leverage among the rows fitted."""
-    outside = np.any((x0 < res.x_min) | (x0 > res.x_max), axis=1)
-    if res.spec.k >= 2:
-        outside |= form > res.max_data_leverage_form * (1 + 1e-12)
-    return outside
-
-
-def predict(res: FitResult, new_x, level: float) -> Prediction:
-    x0 = _new_points(res, new_x)
-    t0 = res.basis.design(x0)
-    eta = t0 @ res.scaled_coef
-    form = np.einsum("ij,jk,ik->i", t0, res.scaled_inv, t0)
-    var_m = np.einsum("ij,jk,ik->i", t0, res.scaled_cov, t0)
-    s = res.stats.rmse
-    q = t_quantile(res.stats.df_resid, level)
-    se_m = np.sqrt(var_m)
-    se_p = np.sqrt(s * s + var_m)
-    lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
-    fitted = eta
-    if res.remedy.log:
-        # Duan's smearing: E[y | x] = exp(eta) * mean(exp(residuals)); the mean's interval is
-        # the log-scale interval mapped the same way; a new observation's interval maps its
-        # log-scale quantiles (no smearing: quantiles survive the monotone transform).
-        sm = res.remedy.smearing
-        fitted, lo_m, hi_m = np.exp(eta) * sm, np.exp(lo_m) * sm, np.exp(hi_m) * sm
-        lo_p, hi_p = np.exp(lo_p), np.exp(hi_p)
-    return Prediction(fitted, lo_m, hi_m, lo_p, hi_p, form, extrapolates(res, x0, form), level)

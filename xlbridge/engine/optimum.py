@@ -15,9 +15,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .inference import extrapolates, t_quantile
-from .result import FitResult
-from .terms import ModelError
+from .dist import t_quantile
+from .errors import ModelError, ModelErrorKind
+from .result import FitResult, extrapolates, new_points
 
 RIDGE_RATIO = 1e-3
 
@@ -90,11 +90,13 @@ def optimum(res: FitResult) -> Optimum:
 
 def _poly_optimum(res: FitResult, q: float) -> Optimum:
     if res.spec.kind not in ("polynomial",) and any(len(p) != 1 for p in res.spec.all_powers):
-        raise ModelError("the optimum needs a polynomial or a complete second-order model")
+        raise ModelError("the optimum needs a polynomial or a complete second-order model",
+                         ModelErrorKind.SPEC)
     c = _poly_coefs(res)
     d = len(c) - 1
     if d < 2:
-        raise ModelError("a straight line has no stationary point; fit degree 2 or more")
+        raise ModelError("a straight line has no stationary point; fit degree 2 or more",
+                         ModelErrorKind.SPEC)
     idx = _index_of(res)
     dc = np.polynomial.polynomial.polyder(c)
     d2c = np.polynomial.polynomial.polyder(dc)
@@ -135,7 +137,8 @@ def _surface_parts(res: FitResult):
     for j in range(k):
         e = tuple(1 if m == j else 0 for m in range(k))
         if e not in idx:
-            raise ModelError("the optimum needs every linear term of the surface")
+            raise ModelError("the optimum needs every linear term of the surface",
+                             ModelErrorKind.SPEC)
         g_pos.append(idx[e])
     for i in range(k):
         for j in range(i, k):
@@ -143,11 +146,11 @@ def _surface_parts(res: FitResult):
                       for m in range(k))
             if e not in idx:
                 raise ModelError("the optimum needs the complete second-order model "
-                                 "(model 'surface')")
+                                 "(model 'surface')", ModelErrorKind.SPEC)
             b_pos[(i, j)] = idx[e]
     if any(sum(p) > 2 for p in res.spec.all_powers) or zero not in idx:
         raise ModelError("the optimum needs the complete second-order model (model 'surface') "
-                         "with an intercept")
+                         "with an intercept", ModelErrorKind.SPEC)
     return g_pos, b_pos
 
 
@@ -171,7 +174,7 @@ def _surface_optimum(res: FitResult, q: float) -> Optimum:
         ts = -0.5 * np.linalg.solve(B, g)
     except np.linalg.LinAlgError:
         raise ModelError("the quadratic part is singular: the surface has no single "
-                         "stationary point") from None
+                         "stationary point", ModelErrorKind.DATA) from None
     # d ts / d theta = -B^-1 (dB ts + dg / 2): one column per coefficient
     jac = np.zeros((k, len(b)))
     binv = np.linalg.inv(B)
@@ -242,10 +245,8 @@ class Slopes:
 def slopes(res: FitResult, at_x, level: float | None = None) -> Slopes:
     """Marginal effect dy/dx_j of the fitted mean at the given points (delta method). For a
     log fit the slope is that of the back-transformed mean exp(eta) * smearing."""
-    from .inference import _new_points
-
     level = res.level if level is None else level
-    x0 = _new_points(res, at_x)
+    x0 = new_points(res, at_x)
     n0, k = x0.shape
     t0 = (x0 - res.basis.centers) / res.basis.scales
     powers = res.spec.all_powers

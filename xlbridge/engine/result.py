@@ -4,9 +4,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
+from enum import Enum
 
 import numpy as np
 
+from .dist import t_quantile
+from .errors import ModelError, ModelErrorKind
 from .solve import Basis
 from .terms import ModelSpec
 
@@ -17,7 +20,7 @@ STAT_FIELDS = ("n_used", "n_params", "df_resid", "sse", "sst", "r2", "adj_r2", "
                "cond_number", "max_vif", "top_term_p_value")
 
 
-def _plain(v):
+def plain(v):
     """JSON-ready value: finite floats stay, NaN/inf become None, numpy scalars unwrap."""
     if isinstance(v, (bool, np.bool_)):
         return bool(v)
@@ -27,6 +30,30 @@ def _plain(v):
         v = float(v)
         return v if math.isfinite(v) else None
     return v
+
+
+class NoteKind(str, Enum):
+    """Which sort of remark a note on a fit is, for code that reacts to some of them."""
+
+    MODEL = "model"  # about the model spec (e.g. a term without its lower-order terms)
+    REMEDY = "remedy"  # a remedy applied (log y, percent error, robust standard errors)
+    ACCURACY = "accuracy"  # fewer digits are reliable than the results show
+    ROWS = "rows"  # few rows per coefficient
+
+
+class Note(str):
+    """One note on a fit: its text (a plain ``str`` everywhere notes are shown) and its
+    ``kind`` (a ``NoteKind``)."""
+
+    kind: NoteKind
+
+    def __new__(cls, text: str, kind: NoteKind) -> Note:
+        note = super().__new__(cls, text)
+        note.kind = kind
+        return note
+
+    def __reduce__(self):
+        return (type(self), (str(self), self.kind))
 
 
 @dataclass(frozen=True)
@@ -44,7 +71,7 @@ class Coefficient:
     vif_centered: float
 
     def to_dict(self) -> dict:
-        return {f: _plain(getattr(self, f)) for f in COEF_FIELDS}
+        return {f: plain(getattr(self, f)) for f in COEF_FIELDS}
 
 
 @dataclass(frozen=True)
@@ -72,7 +99,7 @@ class FitStats:
     top_term_p_value: float
 
     def to_dict(self) -> dict:
-        return {f.name: _plain(getattr(self, f.name)) for f in fields(self)}
+        return {f.name: plain(getattr(self, f.name)) for f in fields(self)}
 
 
 @dataclass(frozen=True)
@@ -86,9 +113,9 @@ class CenteredForm:
     std_errors: tuple[float, ...]
 
     def to_dict(self) -> dict:
-        return {"centers": [_plain(c) for c in self.centers], "terms": list(self.terms),
-                "estimates": [_plain(v) for v in self.estimates],
-                "std_errors": [_plain(v) for v in self.std_errors]}
+        return {"centers": [plain(c) for c in self.centers], "terms": list(self.terms),
+                "estimates": [plain(v) for v in self.estimates],
+                "std_errors": [plain(v) for v in self.std_errors]}
 
 
 @dataclass(frozen=True)
@@ -107,7 +134,7 @@ class Prediction:
     def to_dict(self) -> dict:
         names = ("fitted", "ci_lower", "ci_upper", "pi_lower", "pi_upper", "leverage",
                  "extrapolated")
-        return {k: [_plain(v) for v in getattr(self, k).tolist()] for k in names} | {
+        return {k: [plain(v) for v in getattr(self, k).tolist()] for k in names} | {
             "level": self.level}
 
 
@@ -187,9 +214,27 @@ class FitResult:
         """Fitted mean, its confidence interval, the prediction interval of one new
         observation, leverage, and whether each point extrapolates (outside the observed
         range of any predictor or, with 2+ predictors, beyond the largest data leverage)."""
-        from . import inference
-
-        return inference.predict(self, new_x, self.level if level is None else level)
+        level = self.level if level is None else level
+        x0 = new_points(self, new_x)
+        t0 = self.basis.design(x0)
+        eta = t0 @ self.scaled_coef
+        form = np.einsum("ij,jk,ik->i", t0, self.scaled_inv, t0)
+        var_m = np.einsum("ij,jk,ik->i", t0, self.scaled_cov, t0)
+        s = self.stats.rmse
+        q = t_quantile(self.stats.df_resid, level)
+        se_m = np.sqrt(var_m)
+        se_p = np.sqrt(s * s + var_m)
+        lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
+        fitted = eta
+        if self.remedy.log:
+            # Duan's smearing: E[y | x] = exp(eta) * mean(exp(residuals)); the mean's interval
+            # is the log-scale interval mapped the same way; a new observation's interval maps
+            # its log-scale quantiles (no smearing: quantiles survive the monotone transform).
+            sm = self.remedy.smearing
+            fitted, lo_m, hi_m = np.exp(eta) * sm, np.exp(lo_m) * sm, np.exp(hi_m) * sm
+            lo_p, hi_p = np.exp(lo_p), np.exp(hi_p)
+        return Prediction(fitted, lo_m, hi_m, lo_p, hi_p, form, extrapolates(self, x0, form),
+                          level)
 
     def equation(self, response: str | None = None) -> str:
         """The fitted equation in raw units with round-trip (full precision) coefficients."""
@@ -223,3 +268,25 @@ class FitResult:
             "coefficients": [c.to_dict() for c in self.coefficients],
             "stats": self.stats.to_dict(),
         }
+
+
+def new_points(res: FitResult, new_x) -> np.ndarray:
+    """``new_x`` as an (m, k) float array for the k predictors of ``res``: a 1-D array is m
+    points of one predictor, or one point of k predictors."""
+    x0 = np.asarray(new_x, dtype=float)
+    k = res.spec.k
+    if x0.ndim <= 1:
+        x0 = x0.reshape(-1, 1) if k == 1 else x0.reshape(1, -1)
+    if x0.ndim != 2 or x0.shape[1] != k:
+        raise ModelError(f"new x has {x0.shape[-1]} columns; the model has {k} predictors",
+                         ModelErrorKind.DATA)
+    return x0
+
+
+def extrapolates(res: FitResult, x0: np.ndarray, form: np.ndarray) -> np.ndarray:
+    """Outside the observed range of any predictor or, with 2+ predictors, leverage above
+    the largest leverage among the rows fitted."""
+    outside = np.any((x0 < res.x_min) | (x0 > res.x_max), axis=1)
+    if res.spec.k >= 2:
+        outside |= form > res.max_data_leverage_form * (1 + 1e-12)
+    return outside

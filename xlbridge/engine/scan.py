@@ -16,7 +16,7 @@ import numpy as np
 
 from .api import fit
 from .inference import f_pvalue
-from .terms import MAX_DEGREE, ModelError
+from .terms import MAX_DEGREE, ModelError, ModelErrorKind
 
 LOO_MAX_ROWS = 20
 DEFAULT_FOLDS = 10
@@ -99,14 +99,16 @@ def scan_degrees(
     ``folds``: None for the default (10, or leave-one-out up to 20 rows), 0 for
     leave-one-out, or a number of folds from 2 to the number of rows."""
     if isinstance(max_degree, bool) or not float(max_degree).is_integer():
-        raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}")
+        raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}",
+                         ModelErrorKind.SPEC)
     max_degree = int(max_degree)
     if not 1 <= max_degree <= MAX_DEGREE:
-        raise ModelError(f"max_degree must be 1 to {MAX_DEGREE}; got {max_degree}")
+        raise ModelError(f"max_degree must be 1 to {MAX_DEGREE}; got {max_degree}",
+                         ModelErrorKind.SPEC)
     opts = dict(intercept=intercept, level=level, se=se, log=log, error=error)
     base = fit(y, x, 1, weights=weights, **opts)  # validates and finds the rows used
     if base.spec.k != 1:
-        raise ModelError("the degree scan needs one predictor column")
+        raise ModelError("the degree scan needs one predictor column", ModelErrorKind.SPEC)
     yv = np.asarray(y, dtype=float).ravel()[base.used]
     xv = np.asarray(x, dtype=float).reshape(len(base.used), -1)[base.used][:, 0]
     wv = None if weights is None else np.asarray(weights, dtype=float).ravel()[base.used]
@@ -116,7 +118,8 @@ def scan_degrees(
     elif folds == 0:
         folds = n  # leave-one-out
     if isinstance(folds, bool) or not float(folds).is_integer() or not 2 <= int(folds) <= n:
-        raise ModelError(f"folds must be a whole number from 2 to the number of rows ({n})")
+        raise ModelError(f"folds must be a whole number from 2 to the number of rows ({n})",
+                         ModelErrorKind.SPEC)
     folds = int(folds)
     distinct = len(np.unique(xv))
     rows, notes = [], []

@@ -15,8 +15,9 @@ from math import comb
 
 import numpy as np
 
+from .errors import ModelError, ModelErrorKind, distinct_shortage
 from .exact import ExactFit, ExactSingular, shift_matrix
-from .terms import ModelError, ModelSpec
+from .terms import ModelSpec
 
 EPS = 2.0**-53
 #: A term is aliased when its column, after scaling to unit length, lies within this
@@ -142,20 +143,18 @@ class Core:
     gram: np.ndarray  # T'WT, scaled basis
 
 
-def _alias_message(spec: ModelSpec, col: int, x: np.ndarray) -> str:
+def _alias_error(spec: ModelSpec, col: int, x: np.ndarray) -> ModelError:
     terms = spec.terms
     if spec.kind == "polynomial":
         distinct = len(np.unique(x[:, 0]))
-        need = spec.degree + 1
-        if distinct < need:
-            return (f"degree {spec.degree} needs at least {need} distinct x values; "
-                    f"found {distinct}")
+        if distinct < spec.degree + 1:
+            return ModelError(distinct_shortage(spec.degree, distinct), ModelErrorKind.SHORTAGE)
     if col == 0:
-        return f"term {terms[col]} is zero in every row used"
+        return ModelError(f"term {terms[col]} is zero in every row used", ModelErrorKind.ALIASED)
     before = ", ".join(terms[:col])
-    return (f"term {terms[col]} is aliased: its column is a combination of "
-            f"{before} (within a relative {ALIAS_TOL:g}); drop it, or add rows where it varies "
-            "independently")
+    return ModelError(f"term {terms[col]} is aliased: its column is a combination of "
+                      f"{before} (within a relative {ALIAS_TOL:g}); drop it, or add rows where "
+                      "it varies independently", ModelErrorKind.ALIASED)
 
 
 def _leverage(q_source: np.ndarray, rinv: np.ndarray) -> np.ndarray:
@@ -181,7 +180,7 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     norms = np.sqrt(np.einsum("ij,ij->j", an, an))
     for j in range(p):
         if not norms[j] > 0:
-            raise ModelError(_alias_message(spec, j, x))
+            raise _alias_error(spec, j, x)
     an /= norms
     method = "qr"
     r_fac = None
@@ -199,7 +198,7 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     diag = np.abs(np.diag(r_fac))
     for j in range(p):
         if not diag[j] > ALIAS_TOL:
-            raise ModelError(_alias_message(spec, j, x))
+            raise _alias_error(spec, j, x)
     rinv = np.linalg.inv(np.triu(r_fac))
     inv_n = rinv @ rinv.T  # (An'An)^-1
     if method == "qr":
@@ -214,7 +213,7 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     del an
     b = bn / norms
     if not (np.all(np.isfinite(b)) and np.all(np.isfinite(resid_w))):
-        raise ModelError(_too_large(y, x))
+        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
     outer = np.outer(norms, norms)
     inv_scaled = inv_n / outer
     gram = (r_fac.T @ r_fac) * outer
@@ -226,14 +225,14 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
         beta = np.array([float(sum(m * Fraction(float(v)) for m, v in zip(row, b)))
                          for row in raw])
     except OverflowError:
-        raise ModelError(_too_large(y, x)) from None
+        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE) from None
     mf = np.array([[float(v) for v in row] for row in raw])
     inv_raw = mf @ inv_scaled @ mf.T
     resid = resid_w if sw is None else resid_w / sw
     sse = float(resid_w @ resid_w)
     sst = weighted_sst(y, w) if spec.intercept else float(z @ z)
     if not (np.isfinite(sse) and np.isfinite(sst)):
-        raise ModelError(_too_large(y, x))
+        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
 
     fitn = float(np.linalg.norm(z - resid_w))
     bound = _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst)
@@ -288,14 +287,14 @@ def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
     try:
         return _exact_core(x, y, w, spec, basis, core)
     except OverflowError:
-        raise ModelError(_too_large(y, x)) from None
+        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE) from None
 
 
 def _exact_core(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
     try:
         ex = ExactFit(x, y, w, basis.powers, basis.centers)
     except ExactSingular as err:
-        raise ModelError(_alias_message(spec, err.column, x)) from None
+        raise _alias_error(spec, err.column, x) from None
     gamma = ex.coef_shifted()  # on prod (x_j - c_j)^e_j
     inv_g = ex.inv_gram_shifted()
     shift = shift_matrix(basis.powers, [Fraction(float(c)) for c in basis.centers])

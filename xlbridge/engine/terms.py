@@ -10,13 +10,14 @@ import re
 from dataclasses import dataclass, field
 from itertools import combinations
 
+from .errors import ModelError, ModelErrorKind
+
+__all__ = ["ModelError", "ModelErrorKind", "ModelSpec", "parse_model", "term_label",
+           "default_names", "MAX_DEGREE"]
+
 MAX_DEGREE = 10
 SURFACE_MIN, SURFACE_MAX = 2, 6
 KINDS = ("polynomial", "surface", "linear", "interact", "terms")
-
-
-class ModelError(ValueError):
-    """A model, its data or its options cannot be fitted; the message says what to fix."""
 
 
 Powers = tuple[int, ...]
@@ -124,26 +125,29 @@ def parse_model(
     """Build a ModelSpec for ``k`` predictors from an int degree or a spec string."""
     names = tuple(names) if names is not None else default_names(k)
     if len(names) != k:
-        raise ModelError(f"{len(names)} predictor names given for {k} predictor columns")
+        raise ModelError(f"{len(names)} predictor names given for {k} predictor columns",
+                         ModelErrorKind.SPEC)
     if len({n.lower() for n in names}) != k:
-        raise ModelError(f"predictor names must differ: {', '.join(names)}")
+        raise ModelError(f"predictor names must differ: {', '.join(names)}", ModelErrorKind.SPEC)
     if isinstance(model, float) and not model.is_integer():
-        raise ModelError(f"model {model!r} is not a whole-number degree")
+        raise ModelError(f"model {model!r} is not a whole-number degree", ModelErrorKind.SPEC)
     degree = _as_degree(model)
     if degree is not None:
         if k != 1:
             raise ModelError(
                 f"a polynomial degree needs one predictor column; x has {k} "
-                "(use model 'surface', 'linear', 'interact' or a term list)"
+                "(use model 'surface', 'linear', 'interact' or a term list)",
+                ModelErrorKind.SPEC,
             )
         if not 1 <= degree <= MAX_DEGREE:
-            raise ModelError(f"degree must be 1 to {MAX_DEGREE}; got {degree}")
+            raise ModelError(f"degree must be 1 to {MAX_DEGREE}; got {degree}", ModelErrorKind.SPEC)
         powers = tuple((e,) for e in range(1, degree + 1))
         return _spec(f"degree {degree}", "polynomial", names, powers, intercept, degree)
     if not isinstance(model, str) or not model.strip():
         raise ModelError(
             "model must be a degree 1-10, 'surface', 'linear', 'interact' or a term list "
-            f"such as '{names[0]}, {names[0]}^2'; got {model!r}"
+            f"such as '{names[0]}, {names[0]}^2'; got {model!r}",
+            ModelErrorKind.SPEC,
         )
     text = model.strip()
     key = text.lower()
@@ -152,7 +156,8 @@ def parse_model(
         return _spec("linear", "linear", names, powers, intercept)
     if key == "interact":
         if k < 2:
-            raise ModelError("model 'interact' needs at least 2 predictor columns; x has 1")
+            raise ModelError("model 'interact' needs at least 2 predictor columns; x has 1",
+                             ModelErrorKind.SPEC)
         powers = tuple(_unit(k, j) for j in range(k))
         powers += tuple(_pair(k, i, j) for i, j in combinations(range(k), 2))
         return _spec("interact", "interact", names, powers, intercept)
@@ -160,7 +165,8 @@ def parse_model(
         if not SURFACE_MIN <= k <= SURFACE_MAX:
             raise ModelError(
                 f"model 'surface' needs {SURFACE_MIN} to {SURFACE_MAX} predictor columns; "
-                f"x has {k}"
+                f"x has {k}",
+                ModelErrorKind.SPEC,
             )
         powers = tuple(_unit(k, j) for j in range(k))
         powers += tuple(_unit(k, j, 2) for j in range(k))
@@ -176,7 +182,7 @@ def _parse_terms(text: str, names: tuple[str, ...]) -> tuple[Powers, ...]:
     for raw in text.split(","):
         term = raw.strip()
         if not term:
-            raise ModelError(f"empty term in model {text!r}")
+            raise ModelError(f"empty term in model {text!r}", ModelErrorKind.SPEC)
         exps = [0] * k
         for factor in term.split("*"):
             m = re.fullmatch(r"\s*(.+?)\s*(?:\^\s*(\d+)\s*)?", factor)
@@ -184,17 +190,19 @@ def _parse_terms(text: str, names: tuple[str, ...]) -> tuple[Powers, ...]:
             if name not in lookup:
                 raise ModelError(
                     f"unknown predictor {factor.strip()!r} in term {term!r}; "
-                    f"predictors are: {', '.join(names)}"
+                    f"predictors are: {', '.join(names)}",
+                    ModelErrorKind.SPEC,
                 )
             e = int(m.group(2)) if m and m.group(2) else 1
             if e < 1:
-                raise ModelError(f"power must be at least 1 in term {term!r}")
+                raise ModelError(f"power must be at least 1 in term {term!r}", ModelErrorKind.SPEC)
             exps[lookup[name]] += e
         p = tuple(exps)
         if sum(p) > MAX_DEGREE:
-            raise ModelError(f"term {term!r} has total degree above {MAX_DEGREE}")
+            raise ModelError(f"term {term!r} has total degree above {MAX_DEGREE}",
+                             ModelErrorKind.SPEC)
         if p in out:
-            raise ModelError(f"term {term!r} appears twice in the model")
+            raise ModelError(f"term {term!r} appears twice in the model", ModelErrorKind.SPEC)
         out.append(p)
     return tuple(out)
 
@@ -208,7 +216,7 @@ def _spec(
     degree: int | None = None,
 ) -> ModelSpec:
     if not powers:
-        raise ModelError("the model has no terms")
+        raise ModelError("the model has no terms", ModelErrorKind.SPEC)
     have = set(powers)
     notes = []
     for p in powers:

@@ -1,0 +1,59 @@
+"""Errors of the engine and the rules they enforce in one place.
+
+Every ``ModelError`` carries a ``kind``; callers branch on the kind, never on the words of
+the message (which say what to fix and may change).
+"""
+
+from __future__ import annotations
+
+from enum import Enum
+
+
+class ModelErrorKind(str, Enum):
+    """What is wrong, for code that must react differently to different problems."""
+
+    SPEC = "spec"  # the model text or a fit option (level, se, ...) is invalid
+    DATA = "data"  # data shape/values unusable (lengths differ, non-finite, bad weights)
+    SHORTAGE = "shortage"  # too few rows, or too few distinct x values, for the model
+    ALIASED = "aliased"  # a term is (numerically) a combination of others / zero column
+    SCALE = "scale"  # numbers too large or too small to compute with; rescale
+
+
+class ModelError(ValueError):
+    """A model, its data or its options cannot be fitted; the message says what to fix and
+    ``kind`` (a ``ModelErrorKind``) says which sort of problem it is."""
+
+    def __init__(self, message: str, kind: ModelErrorKind = ModelErrorKind.SPEC):
+        super().__init__(message)
+        self.kind = kind
+
+    def __reduce__(self):  # keep the kind through pickling (e.g. to and from workers)
+        return (type(self), (str(self), self.kind))
+
+
+def check_level(level: object) -> float:
+    """The confidence level as a float, or ModelError(SPEC) unless it is a number strictly
+    between 0 and 1.
+
+    Examples
+    --------
+    >>> check_level(0.9)
+    0.9
+    >>> check_level(95)
+    Traceback (most recent call last):
+    ...
+    xlbridge.engine.errors.ModelError: level must be between 0 and 1 (e.g. 0.95); got 95
+    """
+    if not isinstance(level, (int, float)) or isinstance(level, bool) or not 0 < level < 1:
+        raise ModelError(f"level must be between 0 and 1 (e.g. 0.95); got {level!r}",
+                         ModelErrorKind.SPEC)
+    return float(level)
+
+
+def distinct_shortage(degree: int, found: int) -> str:
+    """The message for a polynomial of ``degree`` fitted to ``found`` distinct x values.
+
+    >>> distinct_shortage(3, 2)
+    'degree 3 needs at least 4 distinct x values; found 2'
+    """
+    return f"degree {degree} needs at least {degree + 1} distinct x values; found {found}"

@@ -1,0 +1,87 @@
+"""Double-double arithmetic: error-free transformations on arrays of doubles.
+
+A double-double number is an unevaluated sum hi + lo of two doubles; these are the classical
+error-free transformations (Knuth's two-sum, Veltkamp's split, Dekker's product) and the
+sums and products built on them.
+"""
+
+from __future__ import annotations
+
+_SPLITTER = 134217729.0  # 2**27 + 1
+
+
+def two_sum(a, b):
+    s = a + b
+    bb = s - a
+    return s, (a - (s - bb)) + (b - bb)
+
+
+def split(a):
+    c = _SPLITTER * a
+    h = c - (c - a)
+    return h, a - h
+
+
+def _prod_err(a, b, asp, bsp):
+    """Exact error of the product a*b (given the Veltkamp splits of a and b)."""
+    return ((asp[0] * bsp[0] - a * b) + asp[0] * bsp[1] + asp[1] * bsp[0]) + asp[1] * bsp[1]
+
+
+def renorm(s, e):
+    t = s + e
+    return t, e - (t - s)
+
+
+def dd_mul(ah, al, bh, bl, asp=None, bsp=None):
+    asp = split(ah) if asp is None else asp
+    bsp = split(bh) if bsp is None else bsp
+    p = ah * bh
+    e = _prod_err(ah, bh, asp, bsp)
+    if bl is not None:
+        e = e + ah * bl
+    if al is not None:
+        e = e + al * bh
+    return renorm(p, e)
+
+
+def dd_prod(ah, al, bh, bl, asp, bsp):
+    """(a*b) as an unnormalised pair (hi, lo): enough for the exact row sums."""
+    p = ah * bh
+    e = _prod_err(ah, bh, asp, bsp)
+    if bl is not None:
+        e = e + ah * bl
+    if al is not None:
+        e = e + al * bh
+    return p, e
+
+
+def dd_add(ah, al, bh, bl):
+    s, e = two_sum(ah, bh)
+    return renorm(s, e + (al + bl))
+
+
+def dd_div(ah, al, bh, bl):
+    q1 = ah / bh
+    ph, pl = dd_mul(bh, bl, q1, None)
+    rh, rl = dd_add(ah, al, -ph, -pl)
+    return renorm(q1, rh / bh)
+
+
+def dd_sum_products(terms):
+    """Double-double sum of double-double products given as (ah, al, bh, bl) tuples."""
+    sh = sl = None
+    for ah, al, bh, bl in terms:
+        ph, pl = dd_prod(ah, al, bh, bl, split(ah), split(bh))
+        if sh is None:
+            sh, sl = ph, pl
+        else:
+            sh, e = two_sum(sh, ph)
+            sl = sl + (e + pl)
+    return renorm(sh, sl)
+
+
+def dd_mv(ah, al, bh, bl=None):
+    """(A b) in double-double for stacks A (p, q, N) and b (q, N)."""
+    return dd_sum_products((ah[:, k], al[:, k], bh[k], None if bl is None else bl[k])
+                           for k in range(ah.shape[1]))
+
