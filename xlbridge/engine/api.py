@@ -84,12 +84,58 @@ def fit(
 ) -> FitResult:
     """Least-squares fit of ``y`` on a polynomial or second-order model in ``x``.
 
-    ``x`` is 1-D (one predictor) or n x k; pandas objects lend their names. ``model`` is a
-    degree 1-10, 'surface', 'linear', 'interact' or a term list like 'size, size^2'. Rows with
-    a NaN in y, x or weights are dropped and counted. Remedies: ``se`` 'hc0'..'hc3' (robust
-    standard errors), ``log`` (fit ln y, predictions back-transformed with Duan's smearing),
-    ``error='percent'`` (multiplicative error, IRLS with weights 1/fitted^2). Raises
-    ModelError with what to fix.
+    Rows with a NaN in y, x or weights are dropped and counted; everything else that cannot
+    be fitted raises ModelError saying what to fix.
+
+    Parameters
+    ----------
+    y : array_like, shape (n,)
+        The response. A pandas Series lends its name.
+    x : array_like, shape (n,) or (n, k)
+        One predictor, or k predictor columns. pandas objects lend their names.
+    model : int or str, default 2
+        A degree 1-10 (one predictor), 'surface', 'linear', 'interact' or a term list
+        such as 'size, size^2'.
+    intercept : bool, default True
+        Fit a constant term.
+    level : float, default 0.95
+        Confidence level of the intervals, strictly between 0 and 1.
+    names : sequence of str, optional
+        Predictor names (default: the columns' names, else x or x1, x2, ...).
+    weights : array_like, shape (n,), optional
+        Positive weights (weighted least squares).
+    se : {'ols', 'hc0', 'hc1', 'hc2', 'hc3'}, default 'ols'
+        Standard errors; 'hc0'..'hc3' are heteroscedasticity-consistent (robust).
+    log : bool, default False
+        Fit ln y; predictions are back-transformed with Duan's smearing.
+    error : {'additive', 'percent'}, default 'additive'
+        'percent': multiplicative error, fitted by iteratively reweighted least squares
+        with weights 1 / fitted^2.
+
+    Returns
+    -------
+    FitResult
+        Coefficients with their inference, fit statistics, the centered form and notes.
+
+    Raises
+    ------
+    ModelError
+        With ``kind`` saying which sort of problem (``ModelErrorKind``).
+
+    Examples
+    --------
+    Invented cost figures for eight sizes:
+
+    >>> from xlbridge.engine import fit
+    >>> size = [1, 2, 3, 4, 5, 6, 7, 8]
+    >>> cost = [3.1, 4.9, 7.2, 9.8, 13.1, 16.9, 21.2, 25.8]
+    >>> res = fit(cost, size, 2, names=("size",))
+    >>> res.terms
+    ('intercept', 'size', 'size^2')
+    >>> print(", ".join(f"{v:.4f}" for v in res.estimates))
+    1.8500, 1.0190, 0.2476
+    >>> print(f"{res.stats.r2:.5f}")
+    0.99995
     """
     level = check_level(level)
     se = str(se).lower()

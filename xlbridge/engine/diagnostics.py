@@ -92,7 +92,32 @@ def _influence(res: FitResult):
 
 
 def row_diagnostics(res: FitResult) -> RowDiagnostics:
-    """Fitted values, residuals and influence measures aligned with the input rows."""
+    """Fitted values, residuals and influence measures aligned with the input rows.
+
+    Parameters
+    ----------
+    res : FitResult
+        A fit from ``fit``.
+
+    Returns
+    -------
+    RowDiagnostics
+        One entry per input row (rows not used hold NaN and the flag 'dropped'): fitted
+        value, residual, studentized residuals, leverage, Cook's distance, Bonferroni p and
+        a flag (outlier, high leverage, influential; cut-offs in the module docstring).
+
+    Examples
+    --------
+    Invented cost figures for eight sizes; the last row has the most leverage:
+
+    >>> from xlbridge.engine import fit, row_diagnostics
+    >>> res = fit([3.1, 4.9, 7.2, 9.8, 13.1, 16.9, 21.2, 25.8], [1, 2, 3, 4, 5, 6, 7, 8], 2)
+    >>> rows = row_diagnostics(res)
+    >>> print(" ".join(f"{h:.3f}" for h in rows.leverage))
+    0.708 0.280 0.232 0.280 0.280 0.232 0.280 0.708
+    >>> rows.flag[-1]
+    'influential'
+    """
     n, p = res.stats.n_used, res.stats.n_params
     internal, external, cooks, bonf = _influence(res)
     m = len(res.used)
@@ -178,7 +203,39 @@ def durbin_watson(e: np.ndarray) -> float:
 
 
 def checks(res: FitResult) -> tuple[Check, ...]:
-    """Assumption checks with plain-word verdicts; thresholds in the module docstring."""
+    """Assumption checks with plain-word verdicts; thresholds in the module docstring.
+
+    Parameters
+    ----------
+    res : FitResult
+        A fit from ``fit``.
+
+    Returns
+    -------
+    tuple of Check
+        Normality, constant variance (Breusch-Pagan, White), independence, outliers,
+        influence, collinearity, extrapolation risk and rows per coefficient, each with its
+        statistic, p-value (NaN where none), verdict ('ok', 'watch', 'problem' or 'n/a')
+        and a note.
+
+    Examples
+    --------
+    Invented cost figures for eight sizes:
+
+    >>> from xlbridge.engine import checks, fit
+    >>> res = fit([3.1, 4.9, 7.2, 9.8, 13.1, 16.9, 21.2, 25.8], [1, 2, 3, 4, 5, 6, 7, 8], 2)
+    >>> for c in checks(res):
+    ...     print(f"{c.check}: {c.verdict}")
+    normality: ok
+    constant variance (Breusch-Pagan): ok
+    constant variance (White): ok
+    independence (Durbin-Watson): ok
+    outliers: ok
+    influence (Cook's distance): problem
+    collinearity (VIF): watch
+    extrapolation risk: watch
+    rows per coefficient: problem
+    """
     n, p = res.stats.n_used, res.stats.n_params
     e = _whitened(res)
     out: list[Check] = []

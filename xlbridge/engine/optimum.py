@@ -81,7 +81,37 @@ def _fitted_interval(res: FitResult, x: np.ndarray, q: float):
 
 
 def optimum(res: FitResult) -> Optimum:
-    """Stationary points of the fitted model (raw units), with delta-method intervals."""
+    """Stationary points of the fitted model (raw units), with delta-method intervals.
+
+    Parameters
+    ----------
+    res : FitResult
+        A polynomial fit of degree 2 or more, or a complete second-order model ('surface')
+        with an intercept.
+
+    Returns
+    -------
+    Optimum
+        The stationary points (location, its standard error and interval, the fitted value
+        and its interval, the kind: minimum, maximum, saddle, ridge or inflection, and
+        whether it lies inside the data), with the eigen-decomposition for surfaces.
+
+    Raises
+    ------
+    ModelError
+        For a straight line, or a model that is not a polynomial or complete surface.
+
+    Examples
+    --------
+    Invented output figures that rise and fall with temperature:
+
+    >>> from xlbridge.engine import fit, optimum
+    >>> temp = [10, 20, 30, 40, 50, 60, 70]
+    >>> output = [52, 71, 83, 88, 86, 77, 60]
+    >>> best = optimum(fit(output, temp, 2)).points[0]
+    >>> print(best.kind, f"{best.x[0]:.2f}", f"{best.fitted:.2f}", best.inside)
+    maximum 41.96 88.23 True
+    """
     q = t_quantile(res.stats.df_resid, res.level)
     if res.spec.k == 1:
         return _poly_optimum(res, q)
@@ -244,7 +274,33 @@ class Slopes:
 
 def slopes(res: FitResult, at_x, level: float | None = None) -> Slopes:
     """Marginal effect dy/dx_j of the fitted mean at the given points (delta method). For a
-    log fit the slope is that of the back-transformed mean exp(eta) * smearing."""
+    log fit the slope is that of the back-transformed mean exp(eta) * smearing.
+
+    Parameters
+    ----------
+    res : FitResult
+        A fit from ``fit``.
+    at_x : array_like, shape (m,) or (m, k)
+        The points: m values of one predictor, or m rows of k predictors.
+    level : float, optional
+        Confidence level of the intervals (default: the fit's level).
+
+    Returns
+    -------
+    Slopes
+        Arrays (m, k): the slope with respect to each predictor at each point, its
+        standard error and interval, and whether each point extrapolates.
+
+    Examples
+    --------
+    Invented output figures that rise and fall with temperature:
+
+    >>> from xlbridge.engine import fit, slopes
+    >>> res = fit([52, 71, 83, 88, 86, 77, 60], [10, 20, 30, 40, 50, 60, 70], 2)
+    >>> s = slopes(res, [20, 60])
+    >>> print(" ".join(f"{v:.3f}" for v in s.slope[:, 0]))
+    1.563 -1.285
+    """
     level = res.level if level is None else level
     x0 = new_points(res, at_x)
     n0, k = x0.shape

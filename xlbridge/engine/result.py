@@ -213,7 +213,34 @@ class FitResult:
     def predict(self, new_x, level: float | None = None) -> Prediction:
         """Fitted mean, its confidence interval, the prediction interval of one new
         observation, leverage, and whether each point extrapolates (outside the observed
-        range of any predictor or, with 2+ predictors, beyond the largest data leverage)."""
+        range of any predictor or, with 2+ predictors, beyond the largest data leverage).
+
+        Parameters
+        ----------
+        new_x : array_like, shape (m,) or (m, k)
+            m values of one predictor, or m rows of the k predictors (one row may be
+            given as a 1-D array of k values).
+        level : float, optional
+            Confidence level of the intervals (default: the fit's level).
+
+        Returns
+        -------
+        Prediction
+            Arrays of m values: fitted, ci_lower/ci_upper (the mean), pi_lower/pi_upper (a
+            new observation), leverage, extrapolated.
+
+        Examples
+        --------
+        Invented cost figures for eight sizes; size 10 lies outside the data:
+
+        >>> from xlbridge.engine import fit
+        >>> res = fit([3.1, 4.9, 7.2, 9.8, 13.1, 16.9, 21.2, 25.8], [1, 2, 3, 4, 5, 6, 7, 8], 2)
+        >>> p = res.predict([4.5, 10])
+        >>> for row in zip(p.fitted, p.pi_lower, p.pi_upper, p.extrapolated):
+        ...     print(" ".join(f"{v:.3f}" for v in row[:3]), bool(row[3]))
+        11.450 11.249 11.651 False
+        36.802 36.384 37.221 True
+        """
         level = self.level if level is None else level
         x0 = new_points(self, new_x)
         t0 = self.basis.design(x0)
