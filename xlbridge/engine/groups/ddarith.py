@@ -11,12 +11,14 @@ _SPLITTER = 134217729.0  # 2**27 + 1
 
 
 def two_sum(a, b):
+    """(s, e) with s = fl(a + b) and a + b = s + e exactly (Knuth's two-sum)."""
     s = a + b
     bb = s - a
     return s, (a - (s - bb)) + (b - bb)
 
 
 def split(a):
+    """(h, l) with h + l = a exactly, each with at most 26 significant bits (Veltkamp)."""
     c = _SPLITTER * a
     h = c - (c - a)
     return h, a - h
@@ -28,11 +30,13 @@ def _prod_err(a, b, asp, bsp):
 
 
 def renorm(s, e):
+    """s + e as a normalised pair (fl(s + e), the rest), for |e| no larger than |s|."""
     t = s + e
     return t, e - (t - s)
 
 
 def dd_mul(ah, al, bh, bl, asp=None, bsp=None):
+    """a * b in double-double, normalised (lo parts may be None; splits may be given)."""
     asp = split(ah) if asp is None else asp
     bsp = split(bh) if bsp is None else bsp
     p = ah * bh
@@ -56,11 +60,13 @@ def dd_prod(ah, al, bh, bl, asp, bsp):
 
 
 def dd_add(ah, al, bh, bl):
+    """a + b in double-double, normalised."""
     s, e = two_sum(ah, bh)
     return renorm(s, e + (al + bl))
 
 
 def dd_div(ah, al, bh, bl):
+    """a / b in double-double: the double quotient and one correction from its remainder."""
     q1 = ah / bh
     ph, pl = dd_mul(bh, bl, q1, None)
     rh, rl = dd_add(ah, al, -ph, -pl)
