@@ -4,16 +4,21 @@ The grouped fit (``fit_groups``, ``GroupsResult``) is imported on first use, so 
 the engine does not load it or scipy.sparse.
 """
 
+from typing import TYPE_CHECKING
+
 from .api import fit
 from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
 from .errors import ModelError, ModelErrorKind, check_level
 from .optimum import Optimum, Slopes, StationaryPoint, optimum, slopes
-from .result import CenteredForm, Coefficient, FitResult, FitStats, Prediction
+from .result import CenteredForm, Coefficient, FitResult, FitStats, NoteKind, Prediction
 from .scan import DegreeRow, DegreeScan, scan_degrees
 from .terms import ModelSpec, parse_model
 
+if TYPE_CHECKING:  # for type checkers and editors; at run time see __getattr__
+    from .groups import GroupsResult, fit_groups
+
 __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coefficient",
-           "CenteredForm", "Prediction", "ModelError", "ModelErrorKind", "check_level",
+           "CenteredForm", "Prediction", "NoteKind", "ModelError", "ModelErrorKind", "check_level",
            "ModelSpec", "parse_model", "checks", "Check", "row_diagnostics", "RowDiagnostics",
            "scan_degrees", "DegreeScan", "DegreeRow", "optimum", "Optimum", "StationaryPoint",
            "slopes", "Slopes"]
