@@ -481,3 +481,19 @@ def test_cache_weight_bound_evicts_old_entries_but_keeps_the_newest():
 def test_numeric_numpy_arrays_are_numbers_even_when_integer():
     c = clean_cells(np.arange(4))
     assert c.values[:, 0].tolist() == [0.0, 1.0, 2.0, 3.0] and (c.codes == 0).all()
+
+
+def test_cell_errors_carry_their_kind():
+    x, y = invented(10)
+    cases = [
+        (lambda: prepare_fit(y, x[:9], 1.0), CellErrorKind.SHAPE),  # heights differ
+        (lambda: prepare_fit([[1.0, 2.0], [3.0, 4.0]], [1.0, 2.0], 1.0), CellErrorKind.SHAPE),
+        (lambda: prepare_fit(y, x, "#N/A"), CellErrorKind.INPUT),  # error value in a cell
+        (lambda: prepare_fit(y, x, [1.0, 2.0]), CellErrorKind.SHAPE),  # not one cell
+        (lambda: fit_cells(y, x, "cubic"), CellErrorKind.MODEL),  # the engine refuses it
+        (lambda: cells.groups_fit(["a"] * 10, y, x, 1.0, "log=yes"), CellErrorKind.OPTIONS),
+    ]
+    for call, kind in cases:
+        with pytest.raises(CellError) as info:
+            call()
+        assert info.value.kind is kind, str(info.value)

@@ -27,7 +27,7 @@ from .models import (
     DEGREE_COLUMNS,
     OPTIMUM_COLUMNS,
     ROW_COLUMNS,
-    Figure,
+    FitFigure,
     checks_cells,
     checks_table,
     degrees_cells,
@@ -77,7 +77,7 @@ from .values import (
 __all__ = [
     "BLANK", "BOOL", "CHECK_COLUMNS", "COEF_COLUMNS", "DEGREE_COLUMNS", "ERROR", "NONFINITE",
     "OK", "OPTIMUM_COLUMNS", "PREDICT_COLUMNS", "ROW_COLUMNS", "TEXT",
-    "Cell", "CellError", "CellErrorKind", "CleanCells", "Figure", "FitInput", "Options",
+    "Cell", "CellError", "CellErrorKind", "CleanCells", "FitFigure", "FitInput", "Options",
     "OptionsError", "Table",
     "checks_cells", "checks_table", "clean_cells", "coef_table", "coefs_cells",
     "degrees_cells", "degrees_table", "drop_reason", "equation_cells", "equation_text",

@@ -26,7 +26,7 @@ from .prepare import fit_cells, fit_prepared, prepare_fit
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import drop_reason, single_value
 
-__all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS", "Figure",
+__all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
            "scan_cells", "plot_figure"]
@@ -193,7 +193,7 @@ def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None, *,
 
 
 @dataclass(frozen=True)
-class Figure:
+class FitFigure:
     """A figure of a fit, ready to be shown: ``kind`` as asked (lower case), ``title`` its
     first axes' title, ``figure`` the matplotlib figure (not yet attached to a canvas)."""
 
@@ -202,7 +202,7 @@ class Figure:
     figure: Any
 
 
-def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> Figure:
+def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> FitFigure:
     """Build one figure of the fit (for ``degrees``, ``model`` is the highest degree)."""
     from ..plots import KINDS, contour, curve, degree_scan, influence, normal_quantiles
     from ..plots import residuals as residual_plot
@@ -229,4 +229,4 @@ def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> F
                    "influence": influence}[k](res)
     except ModelError as exc:
         raise CellError.from_model(exc) from None
-    return Figure(k, fig.axes[0].get_title(), fig)
+    return FitFigure(k, fig.axes[0].get_title(), fig)

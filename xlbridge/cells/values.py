@@ -29,9 +29,9 @@ from .errors import CellError, CellErrorKind
 from .options import Options, parse_options
 
 __all__ = ["OK", "BLANK", "BOOL", "TEXT", "NONFINITE", "ERROR", "MODEL_HELP", "CleanCells",
-           "Grid", "clean_cells", "drop_reason", "drop_summary", "drops_text", "grid_of",
-           "group_key", "is_error_text", "model_value", "options_value", "row_codes",
-           "single_value", "xlwings_like"]
+           "Grid", "clean_cells", "drop_reason", "drop_summary", "drops_text", "from_array",
+           "grid_of", "group_key", "is_error_text", "model_value", "options_value",
+           "row_codes", "single_value", "xlwings_like"]
 
 SHAPE = CellErrorKind.SHAPE
 
