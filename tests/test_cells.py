@@ -16,9 +16,20 @@ import pytest
 from openpyxl.utils.datetime import to_excel
 
 from xlbridge import cells
-from xlbridge.cache import FIT_CACHE
-from xlbridge.cells import CellError, clean_cells, fit_cells, model_value, prepare_fit
-from xlbridge.options import Options, OptionsError
+from xlbridge.cells import (
+    CellError,
+    CellErrorKind,
+    clean_cells,
+    fit_cells,
+    model_value,
+    prepare,
+    prepare_fit,
+)
+from xlbridge.cells.cache import FIT_CACHE
+from xlbridge.cells.options import Options, OptionsError
+from xlbridge.engine import ModelError
+from xlbridge.engine.errors import ModelError as EngineModelError
+from xlbridge.engine.errors import ModelErrorKind
 
 from .conftest import nist_set
 
@@ -142,8 +153,11 @@ def test_model_values(raw, expected):
     (dt.datetime(2024, 1, 1), "degree"),
 ])
 def test_bad_model_values(raw, match):
+    # the cell rules (blank, error value, one cell) are checked by model_value, the model
+    # rules (a whole degree, a model text) by the engine: both reach the caller as CellError
+    x, y = invented(10)
     with pytest.raises(CellError, match=match):
-        model_value(raw)
+        fit_cells(y, x, raw)
 
 
 def test_options_cell_errors():
@@ -181,10 +195,32 @@ def test_mismatched_lengths_message_names_both_sizes():
         prepare_fit(["cost"] + y[:9], x, 1.0)
 
 
+@pytest.mark.xfail(not hasattr(ModelError("probe"), "kind"), strict=True,
+                   reason="needs the engine's ModelError.kind (SHORTAGE), which the engine "
+                          "refactor adds; passes once both are merged")
 def test_too_few_rows_says_how_many_were_dropped():
     with pytest.raises(CellError) as info:
         fit_cells([1.0, 2.0, None, "a", 5.0], [1.0, 2.0, 3.0, 4.0, None], 2.0)
     assert "found 2" in str(info.value) and "3 rows dropped" in str(info.value)
+    assert info.value.kind is CellErrorKind.MODEL
+    assert info.value.model_kind is ModelErrorKind.SHORTAGE
+
+
+def test_dropped_rows_are_added_by_error_kind_not_by_words():
+    inp = prepare_fit([1.0, 2.0, None, "a", 5.0], [1.0, 2.0, 3.0, 4.0, None], 2.0)
+    short = prepare.model_failure(
+        EngineModelError("needs at least 4 rows", ModelErrorKind.SHORTAGE), inp)
+    assert str(short) == ("needs at least 4 rows (3 rows dropped (blank 2, text 1) for "
+                          "blank, text or error cells)")
+    assert short.kind is CellErrorKind.MODEL and short.model_kind is ModelErrorKind.SHORTAGE
+    # the same words under another kind are passed on unchanged
+    other = prepare.model_failure(
+        EngineModelError("found 2 of them", ModelErrorKind.DATA), inp)
+    assert str(other) == "found 2 of them" and other.model_kind is ModelErrorKind.DATA
+    # nothing dropped: nothing to add
+    clean = prepare_fit([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], 2.0)
+    assert str(prepare.model_failure(
+        EngineModelError("found 3", ModelErrorKind.SHORTAGE), clean)) == "found 3"
 
 
 def test_empty_and_all_text_columns():
@@ -232,13 +268,13 @@ def test_nist_pontius_through_cells_with_a_header():
 
 def test_same_data_fits_once_across_functions(monkeypatch):
     calls = []
-    real_fit = cells.fit
+    real_fit = prepare.fit
 
     def counting_fit(*a, **k):
         calls.append(1)
         return real_fit(*a, **k)
 
-    monkeypatch.setattr(cells, "fit", counting_fit)
+    monkeypatch.setattr(prepare, "fit", counting_fit)
     x, y = invented()
     cells.coefs_cells(y, x, 2.0)
     cells.stats_cells(y, x, 2.0, "header=no")
@@ -254,7 +290,7 @@ def test_same_data_fits_once_across_functions(monkeypatch):
 
 
 def test_cache_is_bounded_and_errors_are_not_cached():
-    from xlbridge.cache import LRUCache
+    from xlbridge.cells.cache import LRUCache
 
     c = LRUCache(maxsize=2)
     assert c.get_or_compute("a", lambda: 1) == 1
@@ -430,7 +466,7 @@ def test_reader_values_can_be_made_xlwings_like():
 
 
 def test_cache_weight_bound_evicts_old_entries_but_keeps_the_newest():
-    from xlbridge.cache import LRUCache
+    from xlbridge.cells.cache import LRUCache
 
     c = LRUCache(maxsize=10, max_weight=5, weigh=len)
     c.get_or_compute("a", lambda: "xx")
@@ -445,3 +481,19 @@ def test_cache_weight_bound_evicts_old_entries_but_keeps_the_newest():
 def test_numeric_numpy_arrays_are_numbers_even_when_integer():
     c = clean_cells(np.arange(4))
     assert c.values[:, 0].tolist() == [0.0, 1.0, 2.0, 3.0] and (c.codes == 0).all()
+
+
+def test_cell_errors_carry_their_kind():
+    x, y = invented(10)
+    cases = [
+        (lambda: prepare_fit(y, x[:9], 1.0), CellErrorKind.SHAPE),  # heights differ
+        (lambda: prepare_fit([[1.0, 2.0], [3.0, 4.0]], [1.0, 2.0], 1.0), CellErrorKind.SHAPE),
+        (lambda: prepare_fit(y, x, "#N/A"), CellErrorKind.INPUT),  # error value in a cell
+        (lambda: prepare_fit(y, x, [1.0, 2.0]), CellErrorKind.SHAPE),  # not one cell
+        (lambda: fit_cells(y, x, "cubic"), CellErrorKind.MODEL),  # the engine refuses it
+        (lambda: cells.groups_fit(["a"] * 10, y, x, 1.0, "log=yes"), CellErrorKind.OPTIONS),
+    ]
+    for call, kind in cases:
+        with pytest.raises(CellError) as info:
+            call()
+        assert info.value.kind is kind, str(info.value)

@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from xlbridge.options import Options, OptionsError, option_keys, options_help, parse_options
+from xlbridge.cells.options import Options, OptionsError, option_keys, options_help, parse_options
 
 
 def test_defaults_for_blank_text():

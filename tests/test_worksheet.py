@@ -21,7 +21,7 @@ from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflatio
 
 import xlbridge
 from xlbridge import worksheet as ws
-from xlbridge.cache import FIT_CACHE
+from xlbridge.cells.cache import FIT_CACHE
 
 NA_TEXT = "#N/A"  # an error cell read with err_to_str
 SPILL = -2146826243  # #SPILL!: newer errors arrive as plain negative ints

@@ -237,7 +237,7 @@ class _Fitted:
 
 def _fit_from_args(args: argparse.Namespace, model: Any = None) -> _Fitted:
     from xlbridge import cells
-    from xlbridge.options import OptionsError
+    from xlbridge.cells import OptionsError
 
     book = _open(args.book)
     sheet = book.sheet_name(args.sheet) if args.sheet else None
@@ -584,8 +584,8 @@ def _configure_degrees(p: argparse.ArgumentParser) -> None:
 
 
 def _run_degrees(args: argparse.Namespace) -> int:
+    from xlbridge.cells import degrees_table
     from xlbridge.engine import scan_degrees
-    from xlbridge.model_cells import degrees_table
 
     f = _fit_from_args(args, model=1)
     inp = f.inp
@@ -604,8 +604,8 @@ def _configure_model_table(p: argparse.ArgumentParser) -> None:
 
 
 def _run_checks(args: argparse.Namespace) -> int:
+    from xlbridge.cells import checks_table
     from xlbridge.engine import checks
-    from xlbridge.model_cells import checks_table
 
     f = _fit_from_args(args)
     table = checks_table(f.result, f.inp.options.replace(header=True))
@@ -616,8 +616,8 @@ def _run_checks(args: argparse.Namespace) -> int:
 
 
 def _run_rows(args: argparse.Namespace) -> int:
+    from xlbridge.cells import rows_table
     from xlbridge.engine import row_diagnostics
-    from xlbridge.model_cells import rows_table
 
     f = _fit_from_args(args)
     table = rows_table(f.result, f.inp.options.replace(header=True))
@@ -626,8 +626,8 @@ def _run_rows(args: argparse.Namespace) -> int:
 
 
 def _run_optimum(args: argparse.Namespace) -> int:
+    from xlbridge.cells import optimum_table
     from xlbridge.engine import optimum
-    from xlbridge.model_cells import optimum_table
 
     f = _fit_from_args(args)
     opt = _model_failure(lambda: optimum(f.result))
@@ -645,8 +645,8 @@ def _configure_slope(p: argparse.ArgumentParser) -> None:
 
 def _run_slope(args: argparse.Namespace) -> int:
     from xlbridge import cells
+    from xlbridge.cells import slope_table
     from xlbridge.engine import slopes
-    from xlbridge.model_cells import slope_table
 
     f = _fit_from_args(args)
     at_area, at = _read_points(f, args, "at-x", args.at_x)
@@ -775,8 +775,7 @@ def _configure_groups(p: argparse.ArgumentParser) -> None:
 
 
 def _run_groups(args: argparse.Namespace) -> int:
-    from xlbridge.model_cells import groups_fit, groups_table
-    from xlbridge.options import parse_options
+    from xlbridge.cells import groups_fit, groups_table, parse_options
 
     if args.engine == "dask":
         from xlbridge.engine import ModelError
@@ -942,7 +941,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_OK
     except Exception as exc:  # noqa: BLE001 - a message, never a traceback
         from xlbridge.book.refs import RefError
-        from xlbridge.options import OptionsError
+        from xlbridge.cells import OptionsError
 
         if isinstance(exc, (RefError, OptionsError)):
             return _fail(exc, EXIT_USAGE)

@@ -46,10 +46,11 @@ def _prepare(out: Path, force: bool) -> None:
 
 def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     """Run the demo into folder ``out``; returns the summary text."""
-    from . import cells, model_cells, worksheet
+    from . import cells, worksheet
     from .book import writer
     from .book.reader import open_book
     from .book.recalc import evaluate_book, write_results
+    from .cells import models as model_cells
     from .plots import write_figures
     from .report import Source, write_report
 

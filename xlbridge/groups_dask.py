@@ -1,7 +1,7 @@
 """Grouped fits over datasets larger than memory, with Dask (optional extra ``xlbridge[dask]``).
 
 The rows are shuffled so that every group lands whole in one partition; each partition is
-fitted by the same batch engine as ``fit_groups`` (``xlbridge.engine.batch``), one task per
+fitted by the same batch engine as ``fit_groups`` (``xlbridge.engine.groups``), one task per
 partition, and only the one-row-per-group results travel back. Memory per worker is bounded
 by the partition size, not by the dataset size. Where the work runs is Dask's business: an
 existing cluster (``scheduler="tcp://host:8786"`` or a ``distributed.Client``), a Client the

@@ -2,6 +2,8 @@
 
 Each function returns a plain 2-D list (it spills into cells) or a one-cell ``xlbridge: ...``
 message; it never raises. The work is done in ``xlbridge.cells``; fits are cached there.
+Placing a figure on the sheet (``XB_PLOT``) is done here: this is the only module that
+touches xlwings.
 
 Decorators: the functions carry the open-source xlwings decorators (``func`` outermost,
 then ``arg`` / ``ret``). Importing xlwings costs over a second and the command line calls
@@ -21,7 +23,7 @@ from collections.abc import Callable
 from types import SimpleNamespace
 from typing import Any, TypeVar
 
-from . import cells, model_cells
+from . import cells
 from .cells import Table, run_guarded
 
 __all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREES", "XB_CHECKS",
@@ -135,7 +137,7 @@ def XB_EQUATION(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
 def XB_DEGREES(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
     """Degree scan 1..max_degree: r2, adj_r2, rmse, aic, aicc, bic, press, pred_r2, cross-validated rmse, tests, and the recommended degree (one-standard-error rule)."""  # noqa: E501
-    return run_guarded(model_cells.degrees_cells, y, x, max_degree, options)
+    return run_guarded(cells.degrees_cells, y, x, max_degree, options)
 
 
 @xw.func(category=CATEGORY)
@@ -145,7 +147,7 @@ def XB_DEGREES(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
 def XB_CHECKS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Checks of the regression assumptions (normality, constant variance, independence, outliers, influence, collinearity, extrapolation, rows per term) with verdicts ok / watch / problem."""  # noqa: E501
-    return run_guarded(model_cells.checks_cells, y, x, model, options)
+    return run_guarded(cells.checks_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
@@ -155,7 +157,7 @@ def XB_CHECKS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
 def XB_ROWS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Per input row: fitted, residual, standardized and studentized residuals, leverage, Cook's distance and a flag; rows line up with y and x."""  # noqa: E501
-    return run_guarded(model_cells.rows_cells, y, x, model, options)
+    return run_guarded(cells.rows_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
@@ -165,7 +167,7 @@ def XB_ROWS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
 def XB_OPTIMUM(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Where the fitted curve or surface turns: stationary point with delta-method interval, fitted value there, minimum / maximum / saddle / ridge, inside the data or not."""  # noqa: E501
-    return run_guarded(model_cells.optimum_cells, y, x, model, options)
+    return run_guarded(cells.optimum_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
@@ -177,7 +179,7 @@ def XB_OPTIMUM(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
 def XB_SLOPE(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
     """Marginal effect dy/dx of each predictor at the given points, e.g. the added price of one more unit of size, with delta-method standard error and interval."""  # noqa: E501
-    return run_guarded(model_cells.slope_cells, y, x, model, at_x, options)
+    return run_guarded(cells.slope_cells, y, x, model, at_x, options)
 
 
 @xw.func(category=CATEGORY)
@@ -191,7 +193,25 @@ def XB_SLOPE(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Tabl
 def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
             caller: Any = None) -> Table:
     """Places a figure of the fit beside the calling cell (xlwings pictures, updated in place) and returns its title: curve with bands, residuals, quantiles, influence, degrees, contour."""  # noqa: E501
-    return run_guarded(model_cells.plot_cells, y, x, model, kind, options, caller)
+    return run_guarded(_plot_cells, y, x, model, kind, options, caller)
+
+
+def _plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
+                caller: Any = None) -> Table:
+    """Build the figure (``cells.plot_figure``); with ``caller`` (the calling range, as
+    xlwings passes it on the desktop) place it beside that cell through xlwings' pictures
+    API, updating the picture of the same name. Returns the figure's title, one cell."""
+    fig = cells.plot_figure(y, x, model, kind, options)
+    if caller is None:
+        return [[f"{fig.title} (figure placed on the desktop only; headless: xlbridge plot)"]]
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig.figure)
+    sheet = caller.sheet
+    beside = caller.offset(column_offset=1)
+    sheet.pictures.add(fig.figure, name=f"xlbridge {fig.kind} {caller.address}", update=True,
+                       left=beside.left, top=beside.top)
+    return [[fig.title]]
 
 
 @xw.func(category=CATEGORY)
@@ -204,7 +224,7 @@ def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
         err_to_str=True)
 def XB_GROUPS(group: Any, y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """One model per group, all groups at once: one row per group with n_used, each coefficient and its standard error, r2, adj_r2, rmse and a flag (too few rows, rank deficient...)."""  # noqa: E501
-    return run_guarded(model_cells.groups_cells, group, y, x, model, options)
+    return run_guarded(cells.groups_cells, group, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)

@@ -13,7 +13,7 @@ import time
 import numpy as np
 
 from xlbridge import worksheet as ws
-from xlbridge.cache import FIT_CACHE
+from xlbridge.cells.cache import FIT_CACHE
 
 N = 10_000
 REPEATS = 15

@@ -1,34 +1,35 @@
-"""Cell adaptation for choosing and trusting a model: degree scan, assumption checks, row
-diagnostics, optimum and slopes. Same cell rules, options and output rules as
-``xlbridge.cells`` (plain 2-D tables of float / str, header row unless ``header=no``)."""
+"""Choosing and trusting a model from cells: degree scan, assumption checks, row
+diagnostics, optimum, slopes and the figures of a fit. Same cell rules, options and output
+rules as the basic tables (plain 2-D tables of float / str, header row unless
+``header=no``)."""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
-
-from .cache import SCAN_CACHE, content_key
-from .cells import (
-    CellError,
-    Table,
-    _aligned,
-    _finish,
-    _wrap,
-    drop_reason,
-    fit_cells,
-    fit_prepared,
-    new_points,
-    prepare_fit,
+from ..engine import (
+    FitResult,
+    ModelError,
+    checks,
+    optimum,
+    row_diagnostics,
+    scan_degrees,
+    slopes,
 )
-from .engine import FitResult, ModelError, checks, optimum, row_diagnostics, scan_degrees, slopes
-from .engine.scan import DegreeScan
+from ..engine.scan import DegreeScan
+from ..engine.terms import MAX_DEGREE
+from .cache import SCAN_CACHE, content_key
+from .errors import CellError, CellErrorKind, Table
 from .options import Options
+from .prepare import fit_cells, fit_prepared, prepare_fit
+from .tables import aligned_rows, finish_table, new_points, note_rows
+from .values import drop_reason, single_value
 
-__all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS",
+__all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
-           "scan_cells"]
+           "scan_cells", "plot_figure"]
 
 DEGREE_COLUMNS = ("degree", "r2", "adj_r2", "rmse", "aic", "aicc", "bic", "press", "pred_r2",
                   "cv_rmse", "cv_se", "top_term_p_value", "nested_f_p_value", "choice", "note")
@@ -38,18 +39,13 @@ ROW_COLUMNS = ("fitted", "residual", "std_residual", "studentized", "leverage", 
 OPTIMUM_COLUMNS = ("item", "value", "std_error", "ci_lower", "ci_upper", "note")
 
 
-def _notes(rows: list[list[Any]], notes) -> None:
-    for n in notes:
-        rows.extend([line] for line in _wrap("note: " + n, 255))
-
-
-def _max_degree(value: Any) -> int:
-    from .cells import _single
-
-    v = _single(value, "max_degree")
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not float(v).is_integer():
-        raise CellError(f"max_degree must be a whole number 1 to 10; got {v!r}")
-    return int(v)
+def _max_degree(value: Any) -> Any:
+    """The max_degree cell's number; whether it is a whole number in range is the engine's
+    rule (``scan_degrees``)."""
+    v = single_value(value, "max_degree")
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise CellError(f"max_degree must be a whole number 1 to {MAX_DEGREE}; got {v!r}")
+    return v
 
 
 def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
@@ -57,7 +53,8 @@ def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
     """Degree scan of raw cells (cached by content)."""
     inp = prepare_fit(y, x, 1, options, ints_are_errors=ints_are_errors, weights=weights)
     if inp.x.shape[1] != 1:
-        raise CellError(f"the degree scan needs one x column; x has {inp.x.shape[1]}")
+        raise CellError(f"the degree scan needs one x column; x has {inp.x.shape[1]}",
+                        CellErrorKind.SHAPE)
     top = _max_degree(max_degree)
     opts = inp.options
     key = content_key("scan", inp.key(), top, opts.folds)
@@ -67,7 +64,7 @@ def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
             return scan_degrees(inp.y, inp.x[:, 0], top, folds=opts.folds, weights=inp.weights,
                                 **opts.fit_kwargs())
         except ModelError as exc:
-            raise CellError(str(exc)) from None
+            raise CellError.from_model(exc) from None
 
     return SCAN_CACHE.get_or_compute(key, compute), opts
 
@@ -78,8 +75,8 @@ def degrees_table(scan: DegreeScan, options: Options | None = None) -> Table:
     rows: list[list[Any]] = [list(DEGREE_COLUMNS)] if opts.header else []
     for r in scan.rows:
         rows.append([getattr(r, c) for c in DEGREE_COLUMNS])
-    _notes(rows, [f"recommended: {scan.rule}", *scan.notes])
-    return _finish(rows)
+    note_rows(rows, [f"recommended: {scan.rule}", *scan.notes])
+    return finish_table(rows)
 
 
 def degrees_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
@@ -94,7 +91,7 @@ def checks_table(result: FitResult, options: Options | None = None) -> Table:
     rows: list[list[Any]] = [list(CHECK_COLUMNS)] if opts.header else []
     for c in checks(result):
         rows.append([c.check, c.statistic, c.p_value, c.verdict, c.note])
-    return _finish(rows)
+    return finish_table(rows)
 
 
 def checks_cells(y: Any, x: Any, model: Any, options: Any = None, *,
@@ -111,7 +108,7 @@ def rows_table(result: FitResult, options: Options | None = None) -> Table:
     for i in range(len(d.flag)):
         rows.append([d.fitted[i], d.residual[i], d.std_residual[i], d.studentized[i],
                      d.leverage[i], d.cooks_d[i], d.flag[i]])
-    return _finish(rows)
+    return finish_table(rows)
 
 
 def rows_cells(y: Any, x: Any, model: Any, options: Any = None, *,
@@ -146,8 +143,8 @@ def optimum_table(result: FitResult, options: Options | None = None) -> Table:
         rows.append([f"eigenvalue {i}", lam, "", "", "", "of the quadratic part, raw units"])
         for name, comp in zip(opt.predictors, vec):
             rows.append([f"eigenvector {i} {name}", comp, "", "", "", ""])
-    _notes(rows, [opt.note] if opt.note else [])
-    return _finish(rows)
+    note_rows(rows, [opt.note] if opt.note else [])
+    return finish_table(rows)
 
 
 def optimum_cells(y: Any, x: Any, model: Any, options: Any = None, *,
@@ -156,7 +153,7 @@ def optimum_cells(y: Any, x: Any, model: Any, options: Any = None, *,
     try:
         return optimum_table(res, opts)
     except ModelError as exc:
-        raise CellError(str(exc)) from None
+        raise CellError.from_model(exc) from None
 
 
 def _slope_columns(predictors: tuple[str, ...]) -> list[str]:
@@ -185,8 +182,8 @@ def slope_table(result: FitResult, at_x: Any, options: Options | None = None, *,
             out += [sl.slope[j, p], sl.se[j, p], sl.ci_lower[j, p], sl.ci_upper[j, p]]
         return out + ["extrapolated" if bool(sl.extrapolated[j]) else "inside"]
 
-    rows += _aligned(good, codes, len(cols), "at_x", row_of)
-    return _finish(rows)
+    rows += aligned_rows(good, codes, len(cols), "at_x", row_of)
+    return finish_table(rows)
 
 
 def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None, *,
@@ -195,16 +192,22 @@ def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None, *,
     return slope_table(res, at_x, opts, ints_are_errors=ints_are_errors)
 
 
-def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
-               caller: Any = None) -> Table:
-    """Build one figure of the fit; with ``caller`` (the calling range, as xlwings passes it
-    on the desktop) place it beside that cell through xlwings' pictures API, updating the
-    picture of the same name. Returns the figure's title, one cell."""
-    from .cells import _single
-    from .engine.scan import scan_degrees as _scan
-    from .plots import KINDS, curve, degree_scan, influence, normal_quantiles, residuals
+@dataclass(frozen=True)
+class FitFigure:
+    """A figure of a fit, ready to be shown: ``kind`` as asked (lower case), ``title`` its
+    first axes' title, ``figure`` the matplotlib figure (not yet attached to a canvas)."""
 
-    k = _single(kind, "kind")
+    kind: str
+    title: str
+    figure: Any
+
+
+def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> FitFigure:
+    """Build one figure of the fit (for ``degrees``, ``model`` is the highest degree)."""
+    from ..plots import KINDS, contour, curve, degree_scan, influence, normal_quantiles
+    from ..plots import residuals as residual_plot
+
+    k = single_value(kind, "kind")
     k = k.strip().lower() if isinstance(k, str) else k
     if k not in KINDS:
         raise CellError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
@@ -213,113 +216,17 @@ def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
     try:
         if k == "degrees":
             top = _max_degree(model)
-            fig = degree_scan(_scan(inp.y, inp.x[:, 0], top, folds=inp.options.folds,
-                                    **inp.options.fit_kwargs()))
+            fig = degree_scan(scan_degrees(inp.y, inp.x[:, 0], top, folds=inp.options.folds,
+                                           **inp.options.fit_kwargs()))
         elif k == "contour":
-            from .plots import contour
-
             try:
                 opt = optimum(res)
             except ModelError:
                 opt = None
             fig = contour(res, opt)
         else:
-            fig = {"curve": curve, "residuals": residuals, "quantiles": normal_quantiles,
+            fig = {"curve": curve, "residuals": residual_plot, "quantiles": normal_quantiles,
                    "influence": influence}[k](res)
     except ModelError as exc:
-        raise CellError(str(exc)) from None
-    title = fig.axes[0].get_title()
-    if caller is None:
-        return [[f"{title} (figure placed on the desktop only; headless: xlbridge plot)"]]
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    FigureCanvasAgg(fig)
-    sheet = caller.sheet
-    beside = caller.offset(column_offset=1)
-    sheet.pictures.add(fig, name=f"xlbridge {k} {caller.address}", update=True,
-                       left=beside.left, top=beside.top)
-    return [[title]]
-
-
-def _group_key(v: Any, ints_are_errors: bool) -> tuple[Any, bool]:
-    """(key, usable) of one group cell: text, number, boolean or None (blank); dates as
-    their serial numbers; error cells are not usable."""
-    import datetime as dt
-
-    from .cells import _serial, is_error_text
-
-    if v is None:
-        return None, True
-    if isinstance(v, str):
-        s = v.strip()
-        if is_error_text(s):
-            return None, False
-        return (s if s else None), True
-    if isinstance(v, (bool, np.bool_)):
-        return bool(v), True
-    if isinstance(v, int):
-        return (None, False) if ints_are_errors else (float(v), True)
-    if isinstance(v, (dt.date, dt.time)):
-        return _serial(v), True
-    if isinstance(v, float):
-        return (v, True) if np.isfinite(v) else (None, not np.isinf(v))
-    return str(v), True
-
-
-def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
-               ints_are_errors: bool = True, weights: Any = None):
-    """One model per group from raw cells: ``(GroupsResult, Options, notes)``. The group
-    cells line up with y's rows (a header row of y and x is one of the group cells too)."""
-    from .cells import _grid
-    from .engine import fit_groups
-
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors, weights=weights)
-    unsupported = [k for k in ("log", "se", "error")
-                   if getattr(inp.options, k) != getattr(Options(), k)]
-    if unsupported:
-        raise CellError(f"option {unsupported[0]} is not available for grouped fits; fit a "
-                        "group on its own for remedies")
-    g = _grid(group, "group").transposed_line()
-    if g.cols != 1:
-        raise CellError(f"group must be one column; got {g.cols} columns")
-    keys = list(g.flat)
-    if inp.response is not None or inp.names is not None:
-        keys = keys[1:]  # the header row of y and x
-    n = len(inp.y)
-    if len(keys) < n or any(k is not None for k in keys[n:]):
-        raise CellError(f"group has {len(keys)} rows but y has {n}; select ranges of the same "
-                        "height")
-    cleaned = [_group_key(k, ints_are_errors) for k in keys[:n]]
-    usable = np.array([ok for _, ok in cleaned], dtype=bool)
-    notes = []
-    if not usable.all():
-        notes.append(f"{int((~usable).sum())} rows left out: their group cell holds an error")
-    x = inp.x[usable]
-    w = None if inp.weights is None else inp.weights[usable]
-    try:
-        res = fit_groups([k for (k, ok) in cleaned if ok], inp.y[usable],
-                         x[:, 0] if x.shape[1] == 1 else x, inp.model, names=inp.names,
-                         weights=w, **{k: v for k, v in inp.options.fit_kwargs().items()
-                                       if k in ("intercept", "level")})
-    except ModelError as exc:
-        raise CellError(str(exc)) from None
-    return res, inp.options, notes
-
-
-def groups_table(res, options: Options | None = None, notes=()) -> Table:
-    """One row per group: key, n_used, estimate and std error per term, r2, adj_r2, rmse,
-    flag; the blank group shows as "(blank)"."""
-    opts = options or Options()
-    rows = res.table(header=opts.header)
-    start = 1 if opts.header else 0
-    for r in rows[start:]:
-        if r[0] is None:
-            r[0] = "(blank)"
-    _notes(rows, notes)
-    return _finish(rows)
-
-
-def groups_cells(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
-                 ints_are_errors: bool = True) -> Table:
-    res, opts, notes = groups_fit(group, y, x, model, options, ints_are_errors=ints_are_errors)
-    return groups_table(res, opts, notes)
+        raise CellError.from_model(exc) from None
+    return FitFigure(k, fig.axes[0].get_title(), fig)

@@ -16,6 +16,8 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
+from ..engine.api import ERROR_TYPES, SE_TYPES
+
 __all__ = [
     "Options",
     "OptionsError",
@@ -50,7 +52,7 @@ def _level(text: str) -> float:
         raise ValueError("use a number between 0 and 1, e.g. 0.95 (or 95%)") from None
     if percent:
         value /= 100.0
-    if not (math.isfinite(value) and 0.0 < value < 1.0):
+    if not (math.isfinite(value) and 0.0 < value < 1.0):  # TODO(merge): engine.check_level
         raise ValueError("use a number between 0 and 1, e.g. 0.95 (or 95%)")
     return value
 
@@ -78,6 +80,11 @@ def _folds(text: str) -> int | None:
     if not v.is_integer() or v < 2:
         raise ValueError("use auto, loo or a whole number 2 or more")
     return int(v)
+
+
+def _listed(choices: tuple[str, ...]) -> str:
+    """``"a, b or c"``."""
+    return ", ".join(choices[:-1]) + " or " + choices[-1]
 
 
 def _opt(
@@ -122,12 +129,13 @@ class Options:
         "fit ln(y); predictions back-transformed with Duan's smearing", fit_kwarg="log",
         show=_show_yes_no,
     )
+    # the valid se and error values are the engine's (one list each)
     se: str = _opt(
-        "ols", _choice("ols", "hc0", "hc1", "hc2", "hc3"), "ols, hc0, hc1, hc2 or hc3",
+        "ols", _choice(*SE_TYPES), _listed(SE_TYPES),
         "standard errors: ols, or heteroscedasticity-consistent hc0-hc3", fit_kwarg="se",
     )
     error: str = _opt(
-        "additive", _choice("additive", "percent"), "additive or percent",
+        "additive", _choice(*ERROR_TYPES), _listed(ERROR_TYPES),
         "error model: percent = multiplicative error, weights 1/fitted^2 (IRLS)",
         fit_kwarg="error",
     )

@@ -1,0 +1,90 @@
+"""Cell adaptation: raw spreadsheet cell values in, fits and plain 2-D tables out.
+
+Shared by the worksheet functions (``xlbridge.worksheet``) and the command line; no xlwings
+and no files here. The parts, in the order a worksheet call goes through them:
+
+- ``options``: the options grammar (``level=0.9; header=no``);
+- ``values``: raw cells of every shape turned into arrays, single-cell arguments;
+- ``prepare``: the cleaned arguments of a fit (``FitInput``) and fitting through ``cache``;
+- ``tables``: fit results as tables, and the basic worksheet functions' table calls;
+- ``models``: degree scan, checks, row diagnostics, optimum, slopes, figures;
+- ``groups``: one model per group;
+- ``errors``: ``CellError`` with its ``kind``, and one ``xlbridge: ...`` cell per exception.
+"""
+
+from .errors import (
+    Cell,
+    CellError,
+    CellErrorKind,
+    Table,
+    error_message,
+    guarded,
+    run_guarded,
+)
+from .groups import groups_cells, groups_fit, groups_table
+from .models import (
+    CHECK_COLUMNS,
+    DEGREE_COLUMNS,
+    OPTIMUM_COLUMNS,
+    ROW_COLUMNS,
+    FitFigure,
+    checks_cells,
+    checks_table,
+    degrees_cells,
+    degrees_table,
+    optimum_cells,
+    optimum_table,
+    plot_figure,
+    rows_cells,
+    rows_table,
+    scan_cells,
+    slope_cells,
+    slope_table,
+)
+from .options import Options, OptionsError, option_keys, options_help, parse_options
+from .prepare import FitInput, fit_cells, fit_prepared, prepare_fit
+from .tables import (
+    COEF_COLUMNS,
+    PREDICT_COLUMNS,
+    coef_table,
+    coefs_cells,
+    equation_cells,
+    equation_text,
+    info_cells,
+    info_table,
+    new_points,
+    predict_cells,
+    predict_table,
+    stats_cells,
+    stats_table,
+)
+from .values import (
+    BLANK,
+    BOOL,
+    ERROR,
+    NONFINITE,
+    OK,
+    TEXT,
+    CleanCells,
+    clean_cells,
+    drop_reason,
+    is_error_text,
+    model_value,
+    options_value,
+    xlwings_like,
+)
+
+__all__ = [
+    "BLANK", "BOOL", "CHECK_COLUMNS", "COEF_COLUMNS", "DEGREE_COLUMNS", "ERROR", "NONFINITE",
+    "OK", "OPTIMUM_COLUMNS", "PREDICT_COLUMNS", "ROW_COLUMNS", "TEXT",
+    "Cell", "CellError", "CellErrorKind", "CleanCells", "FitFigure", "FitInput", "Options",
+    "OptionsError", "Table",
+    "checks_cells", "checks_table", "clean_cells", "coef_table", "coefs_cells",
+    "degrees_cells", "degrees_table", "drop_reason", "equation_cells", "equation_text",
+    "error_message", "fit_cells", "fit_prepared", "groups_cells", "groups_fit",
+    "groups_table", "guarded", "info_cells", "info_table", "is_error_text", "model_value",
+    "new_points", "optimum_cells", "optimum_table", "option_keys", "options_help",
+    "options_value", "parse_options", "plot_figure", "predict_cells", "predict_table",
+    "prepare_fit", "rows_cells", "rows_table", "run_guarded", "scan_cells", "slope_cells",
+    "slope_table", "stats_cells", "stats_table", "xlwings_like",
+]

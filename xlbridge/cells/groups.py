@@ -1,0 +1,80 @@
+"""One model per group from cells: the group column cleaned, the grouped fit, its table."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from ..engine import ModelError
+from .errors import CellError, CellErrorKind, Table
+from .options import Options
+from .prepare import prepare_fit
+from .tables import finish_table, note_rows
+from .values import grid_of, group_key
+
+if TYPE_CHECKING:
+    from ..engine import GroupsResult
+
+__all__ = ["groups_fit", "groups_table", "groups_cells"]
+
+
+def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
+               ints_are_errors: bool = True, weights: Any = None
+               ) -> tuple[GroupsResult, Options, list[str]]:
+    """One model per group from raw cells: ``(GroupsResult, Options, notes)``. The group
+    cells line up with y's rows (a header row of y and x is one of the group cells too)."""
+    from ..engine import fit_groups  # grouped fits load their solver only when used
+
+    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors, weights=weights)
+    unsupported = [k for k in ("log", "se", "error")
+                   if getattr(inp.options, k) != getattr(Options(), k)]
+    if unsupported:
+        raise CellError(f"option {unsupported[0]} is not available for grouped fits; fit a "
+                        "group on its own for remedies", CellErrorKind.OPTIONS)
+    g = grid_of(group, "group").transposed_line()
+    if g.cols != 1:
+        raise CellError(f"group must be one column; got {g.cols} columns", CellErrorKind.SHAPE)
+    keys = list(g.flat)
+    if inp.response is not None or inp.names is not None:
+        keys = keys[1:]  # the header row of y and x
+    n = len(inp.y)
+    if len(keys) < n or any(k is not None for k in keys[n:]):
+        raise CellError(f"group has {len(keys)} rows but y has {n}; select ranges of the same "
+                        "height", CellErrorKind.SHAPE)
+    cleaned = [group_key(k, ints_are_errors) for k in keys[:n]]
+    usable = np.array([ok for _, ok in cleaned], dtype=bool)
+    notes = []
+    if not usable.all():
+        notes.append(f"{int((~usable).sum())} rows left out: their group cell holds an error")
+    x = inp.x[usable]
+    w = None if inp.weights is None else inp.weights[usable]
+    try:
+        res = fit_groups([k for (k, ok) in cleaned if ok], inp.y[usable],
+                         x[:, 0] if x.shape[1] == 1 else x, inp.model, names=inp.names,
+                         weights=w, **{k: v for k, v in inp.options.fit_kwargs().items()
+                                       if k in ("intercept", "level")})
+    except ModelError as exc:
+        raise CellError.from_model(exc) from None
+    return res, inp.options, notes
+
+
+def groups_table(res: GroupsResult, options: Options | None = None,
+                 notes: Sequence[str] = ()) -> Table:
+    """One row per group: key, n_used, estimate and std error per term, r2, adj_r2, rmse,
+    flag; the blank group shows as "(blank)"."""
+    opts = options or Options()
+    rows = res.table(header=opts.header)
+    start = 1 if opts.header else 0
+    for r in rows[start:]:
+        if r[0] is None:
+            r[0] = "(blank)"
+    note_rows(rows, notes)
+    return finish_table(rows)
+
+
+def groups_cells(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
+                 ints_are_errors: bool = True) -> Table:
+    res, opts, notes = groups_fit(group, y, x, model, options, ints_are_errors=ints_are_errors)
+    return groups_table(res, opts, notes)

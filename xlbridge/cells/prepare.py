@@ -1,0 +1,154 @@
+"""Cell arguments of a fit made ready for the engine, and fitting them through the cache.
+
+One validation path: :func:`prepare_fit` checks only what is about the cells (the shape and
+height of the selected ranges, header rows, rows without numbers, error values in the model
+and options cells) and cleans them; whether the model, the options' values and the data can
+be fitted is the engine's rule (``engine.fit``), whose message reaches the cell unchanged
+(plus how many rows the cell rules dropped, when the engine finds too few).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from ..engine import FitResult, ModelError, fit
+from ..engine.errors import ModelErrorKind
+from .cache import FIT_CACHE, content_key
+from .errors import CellError, CellErrorKind
+from .options import Options
+from .values import (
+    BLANK,
+    OK,
+    clean_cells,
+    drop_summary,
+    drops_text,
+    grid_of,
+    model_value,
+    options_value,
+    row_codes,
+)
+
+__all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells"]
+
+SHAPE = CellErrorKind.SHAPE
+
+
+@dataclass(frozen=True)
+class FitInput:
+    """Cleaned arguments of a fit: y (n,) and x (n, k) with NaN in unusable rows."""
+
+    y: np.ndarray
+    x: np.ndarray
+    names: tuple[str, ...] | None
+    response: str | None
+    model: Any  # the model cell's text or number, as the engine takes it
+    options: Options
+    drops: tuple[tuple[str, int], ...]
+    row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (drop_reason)
+    weights: np.ndarray | None = None
+
+    @property
+    def n_dropped(self) -> int:
+        return sum(n for _, n in self.drops)
+
+    def key(self) -> str:
+        """Content hash of everything that changes the fit."""
+        return content_key("fit", self.y, self.x, self.names, self.response, self.model,
+                           sorted(self.options.fit_kwargs().items()), self.weights)
+
+
+def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
+                ints_are_errors: bool = True, weights: Any = None) -> FitInput:
+    """Check and clean the cells of y, x, model, options (and optional weight cells, one
+    per row); raises CellError / OptionsError. Trailing rows blank in y and every x column
+    (a whole-column selection) are not data and are not counted as dropped."""
+    opts = options_value(options, ints_are_errors=ints_are_errors)
+    mod = model_value(model, ints_are_errors=ints_are_errors)
+    y_grid = grid_of(y, "y").transposed_line()  # a row of y values reads as a column
+    if y_grid.cols > 1:
+        raise CellError(f"y must be one column (or one row); got {y_grid.rows} rows x "
+                        f"{y_grid.cols} columns", SHAPE)
+    x_grid = grid_of(x, "x")
+    if x_grid.rows == 1 and x_grid.cols == y_grid.rows > 1:
+        x_grid = x_grid.transposed_line()  # a row of x values beside a row of y values
+    yc = clean_cells(y_grid, "y", names=opts.names, ints_are_errors=ints_are_errors)
+    xc = clean_cells(x_grid, "x", names=opts.names, ints_are_errors=ints_are_errors)
+    if yc.n_rows == 0 or yc.n_cols == 0:
+        raise CellError("y is empty; select the column of numbers to model", SHAPE)
+    if xc.n_rows == 0 or xc.n_cols == 0:
+        raise CellError("x is empty; select the predictor column(s)", SHAPE)
+    if yc.n_rows != xc.n_rows:
+        # the heights of the selected ranges, before blank trailing rows are trimmed
+        took = [w for w, c in (("y", yc), ("x", xc)) if c.names is not None]
+        why = (f" (the first row of {' and '.join(took)} was taken as names; "
+               "use names=no if it holds data)") if took else ""
+        raise CellError(f"y has {yc.n_rows} rows but x has {xc.n_rows} rows{why}; "
+                        "select ranges of the same height", SHAPE)
+    if not (yc.codes == OK).any():
+        raise CellError("y has no numbers; select the column of numbers to model")
+    for j in range(xc.n_cols):
+        if not (xc.codes[:, j] == OK).any():
+            label = f" ({xc.names[j]})" if xc.names else ""
+            raise CellError(f"x column {j + 1}{label} has no numbers")
+    blank = (yc.codes[:, 0] == BLANK) & (xc.codes == BLANK).all(axis=1)
+    n = len(blank) - int(np.argmax(~blank[::-1])) if not blank.all() else 0
+    yv, xv = yc.values[:n, 0], xc.values[:n]
+    blocks = [yc.codes[:n], xc.codes[:n]]
+    wv = None
+    if weights is not None:
+        wc = clean_cells(grid_of(weights, "weights").transposed_line(), "weights",
+                         names=opts.names, ints_are_errors=ints_are_errors)
+        if wc.n_cols != 1:
+            raise CellError(f"weights must be one column; got {wc.n_cols} columns", SHAPE)
+        if wc.n_rows < n or np.any(wc.codes[n:] != BLANK):
+            raise CellError(f"weights has {wc.n_rows} rows but y has {n}; select ranges of "
+                            "the same height", SHAPE)
+        wv = wc.values[:n, 0]
+        blocks.append(wc.codes[:n])
+    codes = row_codes(*blocks)
+    if wv is not None:
+        wv = np.where(codes == OK, wv, np.nan)
+    response = yc.names[0] if yc.names else None
+    return FitInput(yv, xv, xc.names, response, mod, opts, drop_summary(codes), codes, wv)
+
+
+def model_failure(exc: ModelError, inp: FitInput) -> CellError:
+    """The engine's refusal of a fit as a cell error; when it found too few rows or
+    distinct x values, say how many rows the cell rules removed."""
+    text = str(exc)
+    if inp.drops and getattr(exc, "kind", None) is ModelErrorKind.SHORTAGE:
+        text += f" ({drops_text(inp.drops)} for blank, text or error cells)"
+    return CellError.from_model(exc, text)
+
+
+def _fit_now(inp: FitInput) -> FitResult:
+    x = inp.x[:, 0] if inp.x.shape[1] == 1 else inp.x
+    try:
+        res = fit(inp.y, x, inp.model, names=inp.names, weights=inp.weights,
+                  **inp.options.fit_kwargs())
+    except ModelError as exc:
+        raise model_failure(exc, inp) from None
+    changes: dict[str, Any] = {}
+    if inp.response and inp.response != res.response:
+        changes["response"] = inp.response
+    if inp.drops:
+        changes["notes"] = tuple(res.notes) + (drops_text(inp.drops),)
+    if res.n_dropped != inp.n_dropped:
+        # the engine drops exactly the NaN rows we hand it; keep the cell-level count
+        changes["n_dropped"] = inp.n_dropped
+    return replace(res, **changes) if changes else res
+
+
+def fit_prepared(inp: FitInput) -> FitResult:
+    """Fit cleaned input, once per content (bounded LRU cache shared by all functions)."""
+    return FIT_CACHE.get_or_compute(inp.key(), lambda: _fit_now(inp))
+
+
+def fit_cells(y: Any, x: Any, model: Any, options: Any = None, *,
+              ints_are_errors: bool = True) -> tuple[FitResult, Options]:
+    """Fit raw cell values; returns the (cached) FitResult and the parsed options."""
+    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+    return fit_prepared(inp), inp.options

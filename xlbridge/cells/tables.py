@@ -1,0 +1,293 @@
+"""Fit results as plain 2-D tables, and the table functions of the basic worksheet functions.
+
+Every table is a rectangular list of rows of ``float`` / ``str``: no None, NaN or inf (a
+value that does not exist is ``""`` and a note says why), text at most 255 characters.
+"""
+
+from __future__ import annotations
+
+import importlib.metadata
+import math
+import numbers
+import platform
+import sys
+from collections.abc import Callable, Iterable
+from dataclasses import fields
+from typing import Any
+
+import numpy as np
+
+from ..engine import FitResult
+from .errors import Cell, CellError, CellErrorKind, Table, clip_text
+from .options import Options
+from .prepare import fit_cells
+from .values import OK, CleanCells, clean_cells, drop_reason, from_array
+
+__all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "aligned_rows",
+           "coef_table", "coefs_cells", "equation_cells", "equation_text", "finish_table",
+           "info_cells", "info_table", "new_points", "note_rows", "predict_cells",
+           "predict_table", "stats_cells", "stats_table", "wrap_text"]
+
+MAX_TEXT = 255  # longest string in a multi-cell result
+MAX_CELL_TEXT = 32767  # longest text one spreadsheet cell holds
+
+COEF_COLUMNS = ("term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower",
+                "ci_upper", "vif", "vif_centered")
+PREDICT_COLUMNS = ("fitted", "ci_lower", "ci_upper", "pi_lower", "pi_upper", "leverage",
+                   "range_flag")
+
+SHAPE = CellErrorKind.SHAPE
+
+
+def _out(v: Any) -> Cell:
+    """One output cell: finite float or text; anything else becomes ""."""
+    if isinstance(v, str):
+        return clip_text(v, MAX_TEXT)
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, numbers.Real):
+        f = float(v)
+        return f if math.isfinite(f) else ""
+    return "" if v is None else clip_text(str(v), MAX_TEXT)
+
+
+def finish_table(table: list[list[Any]]) -> Table:
+    """Rows of any values as a rectangular table of finite floats and short text."""
+    width = max((len(r) for r in table), default=0)
+    return [[_out(v) for v in r] + [""] * (width - len(r)) for r in table]
+
+
+def _missing_word(v: Any) -> str | None:
+    """None for a finite number; otherwise how to describe the blank cell."""
+    if isinstance(v, numbers.Real) and not isinstance(v, bool):
+        f = float(v)
+        if math.isfinite(f):
+            return None
+        return "not defined" if math.isnan(f) else "infinite"
+    return "not defined"
+
+
+def wrap_text(text: str, width: int) -> list[str]:
+    """``text`` broken at spaces into lines of at most ``width`` characters."""
+    words, lines, line = text.split(), [], ""
+    for w in words:
+        while len(w) > width:
+            if line:
+                lines.append(line)
+                line = ""
+            lines.append(w[:width])
+            w = w[width:]
+        if not line:
+            line = w
+        elif len(line) + 1 + len(w) <= width:
+            line += " " + w
+        else:
+            lines.append(line)
+            line = w
+    if line:
+        lines.append(line)
+    return lines or [""]
+
+
+def note_rows(rows: list[list[Any]], notes: Iterable[str]) -> None:
+    """Append each note as one-cell ``note: ...`` rows below a table."""
+    for n in notes:
+        rows.extend([line] for line in wrap_text("note: " + n, MAX_TEXT))
+
+
+def _blank_note(blanks: dict[str, str]) -> str | None:
+    if not blanks:
+        return None
+    return "blank cells: " + ", ".join(f"{k} {v}" for k, v in blanks.items())
+
+
+def coef_table(result: FitResult, options: Options | None = None) -> Table:
+    """One row per term: estimate, standard error, t ratio, p-value, interval, VIFs.
+
+    VIF columns are blank for the intercept; any other blank gets a note row below."""
+    opts = options or Options()
+    rows: list[list[Any]] = [list(COEF_COLUMNS)] if opts.header else []
+    blanks: dict[str, str] = {}
+    for c in result.coefficients:
+        row: list[Any] = [c.term]
+        for col in COEF_COLUMNS[1:]:
+            v = getattr(c, col)
+            word = _missing_word(v)
+            if word and not (c.term == "intercept" and col.startswith("vif")):
+                blanks.setdefault(col, word)
+            row.append(v)
+        rows.append(row)
+    note = _blank_note(blanks)
+    if note:
+        note_rows(rows, [note])
+    return finish_table(rows)
+
+
+def stats_table(result: FitResult, options: Options | None = None) -> Table:
+    """Rows ``statistic, value``: model, n_used, n_dropped, the FitStats fields, level,
+    then ``note`` rows (engine notes, dropped rows, blank values)."""
+    opts = options or Options()
+    rows: list[list[Any]] = [["statistic", "value"]] if opts.header else []
+    rows.append(["model", result.model_text])
+    blanks: dict[str, str] = {}
+    for f in fields(result.stats):
+        v = getattr(result.stats, f.name)
+        word = _missing_word(v)
+        if word:
+            blanks[f.name] = word
+        rows.append([f.name, v])
+        if f.name == "n_used":
+            rows.append(["n_dropped", result.n_dropped])
+    rows.append(["level", result.level])
+    notes = list(result.notes)
+    note = _blank_note(blanks)
+    if note:
+        notes.append(note)
+    for n in notes:
+        rows.extend(["note", line] for line in wrap_text(n, MAX_TEXT))
+    return finish_table(rows)
+
+
+def _order_by_names(block: CleanCells, predictors: tuple[str, ...]) -> CleanCells:
+    """Reorder new_x columns when its header names the model's predictors."""
+    if block.names is None or len(block.names) != len(predictors):
+        return block
+    want = [p.strip().lower() for p in predictors]
+    have = [n.strip().lower() for n in block.names]
+    if sorted(want) != sorted(have) or want == have or len(set(have)) != len(have):
+        return block
+    idx = [have.index(p) for p in want]
+    return CleanCells(block.values[:, idx], block.codes[:, idx],
+                      tuple(block.names[i] for i in idx))
+
+
+def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
+               ints_are_errors: bool = True, what: str = "new_x"
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Points to evaluate a fit at, from raw cells: ``(points, good, codes)`` with one entry
+    per row of ``what`` (after its header); ``points`` holds only the usable rows."""
+    opts = options or Options()
+    predictors = tuple(result.spec.predictors)
+    k = len(predictors)
+    flat_as_row = False
+    raw = from_array(new_x)
+    if isinstance(raw, (list, tuple)) and raw and not isinstance(raw[0], (list, tuple)):
+        # a flat list is a column of points for one predictor, one point for k predictors
+        if k > 1:
+            if len(raw) != k:
+                raise CellError(f"{what} has {len(raw)} values in one row or column but the "
+                                f"model has {k} predictors ({', '.join(predictors)}); "
+                                "give one row per point, one column per predictor", SHAPE)
+            flat_as_row = True
+    block = clean_cells(raw, what, names=opts.names, ints_are_errors=ints_are_errors,
+                        flat_as_row=flat_as_row)
+    if block.n_rows == 0:
+        raise CellError(f"{what} has no rows; select the x values to evaluate at", SHAPE)
+    if block.n_cols != k:
+        raise CellError(f"{what} has {block.n_cols} columns but the model has {k} "
+                        f"predictor{'s' if k != 1 else ''} ({', '.join(predictors)})", SHAPE)
+    block = _order_by_names(block, predictors)
+    codes = block.codes.max(axis=1)
+    good = codes == OK
+    pts = block.values[good]
+    return (pts[:, 0] if k == 1 else pts), good, codes
+
+
+def aligned_rows(good: np.ndarray, codes: np.ndarray, width: int, what: str,
+                 row_of: Callable[[int], list[Any]]) -> list[list[Any]]:
+    """One output row per input row: ``row_of(j)`` for the j-th usable row, blanks and a
+    ``dropped: ...`` flag for the others."""
+    rows, j = [], 0
+    for i in range(len(good)):
+        if not good[i]:
+            rows.append([""] * (width - 1) + [f"dropped: {drop_reason(codes[i])} in {what}"])
+            continue
+        rows.append(row_of(j))
+        j += 1
+    return rows
+
+
+def predict_table(result: FitResult, new_x: Any, options: Options | None = None, *,
+                  ints_are_errors: bool = True) -> Table:
+    """One row per row of ``new_x`` (after its header row, if any): fitted value,
+    confidence and prediction intervals, leverage and ``range_flag`` (``inside``,
+    ``extrapolated`` or ``dropped: ...`` with blanks for a row that has no usable x)."""
+    opts = options or Options()
+    pts, good, codes = new_points(result, new_x, opts, ints_are_errors=ints_are_errors)
+    rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
+    pred = result.predict(pts, level=opts.level) if good.any() else None
+
+    def row_of(j: int) -> list[Any]:
+        assert pred is not None
+        vals = [pred.fitted[j], pred.ci_lower[j], pred.ci_upper[j], pred.pi_lower[j],
+                pred.pi_upper[j], pred.leverage[j]]
+        flag = "extrapolated" if bool(pred.extrapolated[j]) else "inside"
+        missing = [name for name, v in zip(PREDICT_COLUMNS, vals) if _missing_word(v)]
+        if missing:
+            flag += "; blank: " + ", ".join(missing) + " not finite"
+        return vals + [flag]
+
+    rows += aligned_rows(good, codes, len(PREDICT_COLUMNS), "new_x", row_of)
+    return finish_table(rows)
+
+
+def equation_text(result: FitResult, options: Options | None = None) -> Table:
+    """One cell: the fitted equation in raw units with round-trip coefficients."""
+    text = result.equation()
+    if len(text) > MAX_CELL_TEXT:
+        raise CellError(f"the equation has {len(text)} characters, more than a cell holds; "
+                        "use XB_COEFS for the coefficients", CellErrorKind.RESULT)
+    return [[text]]
+
+
+def _version(dist: str) -> str:
+    try:
+        return importlib.metadata.version(dist)
+    except importlib.metadata.PackageNotFoundError:
+        return "not installed"
+
+
+def info_table(options: Options | None = None) -> Table:
+    """Versions of xlbridge, Python and the numerical dependencies, for audit trails."""
+    opts = options or Options()
+    own = getattr(sys.modules.get("xlbridge"), "__version__", None) or _version("xlbridge")
+    rows: list[list[Any]] = [["component", "version"]] if opts.header else []
+    rows += [
+        ["xlbridge", own],
+        ["python", platform.python_version()],
+        ["numpy", np.__version__],
+        ["scipy", _version("scipy")],
+        ["xlwings", _version("xlwings")],
+        ["platform", platform.platform()],
+    ]
+    return finish_table(rows)
+
+
+# --- one call per worksheet function (raise on bad input; wrap with ``guarded``) ------------
+
+def coefs_cells(y: Any, x: Any, model: Any, options: Any = None, *,
+                ints_are_errors: bool = True) -> Table:
+    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+    return coef_table(res, opts)
+
+
+def stats_cells(y: Any, x: Any, model: Any, options: Any = None, *,
+                ints_are_errors: bool = True) -> Table:
+    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+    return stats_table(res, opts)
+
+
+def predict_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None, *,
+                  ints_are_errors: bool = True) -> Table:
+    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+    return predict_table(res, new_x, opts, ints_are_errors=ints_are_errors)
+
+
+def equation_cells(y: Any, x: Any, model: Any, options: Any = None, *,
+                   ints_are_errors: bool = True) -> Table:
+    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+    return equation_text(res, opts)
+
+
+def info_cells() -> Table:
+    return info_table()
