@@ -18,9 +18,8 @@ from openpyxl.worksheet.formula import ArrayFormula
 
 from xlbridge import worksheet
 from xlbridge.book.reader import open_book
-from xlbridge.book.recalc import evaluate_book
 from xlbridge.book.refs import Area, parse_ref
-from xlbridge.book.xbcall import (
+from xlbridge.runner.formula import (
     ArrayConst,
     Call,
     Literal,
@@ -31,6 +30,7 @@ from xlbridge.book.xbcall import (
     calls_xb,
     parse_xb_formula,
 )
+from xlbridge.runner.recalc import evaluate_book
 
 from .bookfactory import cost_book, invented_cost_data, run, sha256, with_cached_values
 
@@ -313,8 +313,8 @@ def test_spill_references(tmp_path: Path) -> None:
 def test_results_that_would_overlap(tmp_path: Path) -> None:
     """B5's table (B5:J8) and A6's statistics (A6:B27) cross at B6:B8: the second one
     written gets a message, the first keeps its values."""
-    from xlbridge.book.recalc import write_results
     from xlbridge.book.writer import load_for_copy
+    from xlbridge.runner.recalc import write_results
 
     src = cost_book(tmp_path / "o.xlsx", formulas={"Model": {
         "B5": f"=XB_COEFS({D}!B:B,{D}!A:A,2)", "A6": f"=XB_STATS({D}!B:B,{D}!A:A,2)"}})

@@ -49,9 +49,9 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     from . import cells, model_cells, worksheet
     from .book import writer
     from .book.reader import open_book
-    from .book.recalc import evaluate_book, write_results
     from .plots import write_figures
     from .report import Source, write_report
+    from .runner.recalc import evaluate_book, write_results
 
     start = time.perf_counter()
     out = Path(out)

@@ -1,7 +1,7 @@
 """Evaluate the XB_ formulas of a workbook with the worksheet functions themselves.
 
 Steps: find every formula cell (openpyxl: plain formulas and ``ArrayFormula``), keep those
-that call an XB_ function, read each call (:mod:`xlbridge.book.xbcall`), order the cells so
+that call an XB_ function, read each call (:mod:`xlbridge.runner.formula`), order the cells so
 that a cell reading another XB_ cell's result comes after it, and call the function in
 ``xlbridge.worksheet.FUNCTIONS`` with the raw values xlwings would hand it.  A cell whose
 arguments cannot be evaluated exactly gets a message instead of a value.
@@ -22,7 +22,7 @@ from typing import Any
 from xlbridge.book.reader import Book, missing_value_message, xlwings_shape
 from xlbridge.book.refs import Area, RefError, parse_ref
 from xlbridge.book.safety import BookError
-from xlbridge.book.xbcall import (
+from xlbridge.runner.formula import (
     ArrayConst,
     Call,
     Literal,
@@ -31,8 +31,8 @@ from xlbridge.book.xbcall import (
     Spill,
     Unsupported,
     calls_xb,
-    end_of_quoted,
     parse_xb_formula,
+    reference_texts,
 )
 
 __all__ = ["FormulaCell", "XbCell", "Evaluation", "evaluate_book", "formula_index",
@@ -193,46 +193,6 @@ def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str) -
             dest[(f.row, f.col)] = f
 
 
-# --- references inside ordinary formulas (dependency detection only) -------------------
-
-def _formula_refs(text: str) -> list[str]:
-    """Tokens of a formula that may be references (used to find dependencies, not to
-    compute anything)."""
-    body = text[1:] if text.startswith("=") else text
-    tokens: list[str] = []
-    cur = ""
-    depth = 0
-    i = 0
-    while i < len(body):
-        ch = body[i]
-        if ch == '"':
-            i = end_of_quoted(body, i)
-            if cur:
-                tokens.append(cur)
-            cur = ""
-            continue
-        if ch == "'" and depth == 0:
-            j = end_of_quoted(body, i)
-            cur += body[i:j]
-            i = j
-            continue
-        if ch == "[":
-            depth += 1
-        elif ch == "]":
-            depth -= 1
-        if depth == 0 and ch in "(),+-*/^&=<>;{}% \t\r\n":
-            if cur and ch != "(":
-                tokens.append(cur)
-            cur = ""  # a token followed by "(" is a function name
-            i += 1
-            continue
-        cur += ch
-        i += 1
-    if cur:
-        tokens.append(cur)
-    return tokens
-
-
 # --- evaluation --------------------------------------------------------------------------
 
 
@@ -290,7 +250,7 @@ class _Evaluator:
             return self._taint_memo[key]
         self._taint_memo[key] = None  # cycles among ordinary formulas end here
         found = None
-        for tok in _formula_refs(f.text):
+        for tok in reference_texts(f.text):
             try:
                 area = self.book.resolve(tok, default_sheet=f.sheet)
             except (BookError, RefError, ValueError):
