@@ -314,7 +314,7 @@ def test_results_that_would_overlap(tmp_path: Path) -> None:
     """B5's table (B5:J8) and A6's statistics (A6:B27) cross at B6:B8: the second one
     written gets a message, the first keeps its values."""
     from xlbridge.book.writer import load_for_copy
-    from xlbridge.runner.recalc import write_results
+    from xlbridge.runner.write import write_results
 
     src = cost_book(tmp_path / "o.xlsx", formulas={"Model": {
         "B5": f"=XB_COEFS({D}!B:B,{D}!A:A,2)", "A6": f"=XB_STATS({D}!B:B,{D}!A:A,2)"}})

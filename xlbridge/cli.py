@@ -411,7 +411,8 @@ def _cell_rows(evaluation: Any) -> list[dict[str, Any]]:
 def _run_recalc(args: argparse.Namespace) -> int:
     from xlbridge.book import writer
     from xlbridge.book.safety import check_output
-    from xlbridge.runner.recalc import evaluate_book, write_results
+    from xlbridge.runner.recalc import evaluate_book
+    from xlbridge.runner.write import write_results
 
     book = _open(args.book)
     src = book.path

@@ -51,7 +51,8 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     from .book.reader import open_book
     from .plots import write_figures
     from .report import Source, write_report
-    from .runner.recalc import evaluate_book, write_results
+    from .runner.recalc import evaluate_book
+    from .runner.write import write_results
 
     start = time.perf_counter()
     out = Path(out)

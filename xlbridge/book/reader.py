@@ -291,6 +291,10 @@ class Book:
     def _structure_or_empty(self) -> _Structure:
         return self._structure or _Structure(self.sheet_names, {}, {}, {}, {})
 
+    def sheet_part(self, name: str) -> str | None:
+        """The archive part holding a sheet's XML (None for CSV or when not known)."""
+        return self._structure_or_empty().sheet_parts.get(name)
+
     @property
     def tables(self) -> dict[str, TableInfo]:
         return self._structure_or_empty().tables

@@ -21,6 +21,7 @@ __all__ = [
     "load_for_copy",
     "losses_in",
     "new_workbook_from_rows",
+    "safe_openpyxl",
     "save_copy",
     "set_value",
     "unique_sheet_title",
@@ -77,7 +78,8 @@ def losses_in(path: Path) -> list[str]:
     return out
 
 
-def _openpyxl() -> Any:
+def safe_openpyxl() -> Any:
+    """openpyxl, imported so that it parses XML with defusedxml."""
     # openpyxl parses with defusedxml when it is installed, unless this variable says no;
     # the runner insists (the archive was also checked before openpyxl sees it).
     os.environ["OPENPYXL_DEFUSEDXML"] = "True"
@@ -91,7 +93,7 @@ def _openpyxl() -> Any:
 def load_for_copy(path: Path) -> Any:
     """openpyxl workbook of an .xlsx/.xlsm input (formulas, not values), for a copy."""
     check_archive(path)
-    openpyxl = _openpyxl()
+    openpyxl = safe_openpyxl()
     import warnings
 
     try:
@@ -108,7 +110,7 @@ def load_for_copy(path: Path) -> Any:
 
 def new_workbook_from_rows(sheet: str, rows: Iterable[Sequence[Any]]) -> Any:
     """A new workbook holding CSV rows (the copy of a .csv input)."""
-    openpyxl = _openpyxl()
+    openpyxl = safe_openpyxl()
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.title = unique_sheet_title(wb, sheet[:31] or "data", replace_active=True)
@@ -132,9 +134,10 @@ def set_value(cell: Any, value: Any) -> None:
         return
     if type(value) is float and math.isfinite(value) and float(format(value, ".16g")) != value:
         # openpyxl writes numbers with 16 significant digits, which does not round-trip
-        # every double; the number text is handed over ready-made (17 digits) instead.
-        cell.value = value
-        cell._value = repr(value)
+        # every double; the shortest text that does (repr, up to 17 digits) is handed over
+        # ready-made, and the cell is marked a number so the text goes into the file as is.
+        cell.value = repr(value)
+        cell.data_type = "n"
         return
     cell.value = value
 
