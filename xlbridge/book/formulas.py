@@ -14,8 +14,7 @@ from typing import Any
 
 from xlbridge.book.reader import Book
 from xlbridge.book.refs import Area, RefError, parse_ref
-from xlbridge.book.safety import BookError
-from xlbridge.book.writer import safe_openpyxl
+from xlbridge.book.safety import BookError, safe_openpyxl
 
 __all__ = ["FormulaCell", "FormulaIndex", "formula_index"]
 

@@ -7,13 +7,12 @@ openpyxl re-saves only what it understands, so the runner never writes to its in
 from __future__ import annotations
 
 import math
-import os
 import zipfile
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-from xlbridge.book.safety import BookError, check_archive, write_atomically
+from xlbridge.book.safety import BookError, check_archive, safe_openpyxl, write_atomically
 
 __all__ = [
     "OPENPYXL_LOSSES",
@@ -21,7 +20,6 @@ __all__ = [
     "load_for_copy",
     "losses_in",
     "new_workbook_from_rows",
-    "safe_openpyxl",
     "save_copy",
     "set_value",
     "unique_sheet_title",
@@ -76,18 +74,6 @@ def losses_in(path: Path) -> list[str]:
     if sparklines:
         out.append("sparklines")
     return out
-
-
-def safe_openpyxl() -> Any:
-    """openpyxl, imported so that it parses XML with defusedxml."""
-    # openpyxl parses with defusedxml when it is installed, unless this variable says no;
-    # the runner insists (the archive was also checked before openpyxl sees it).
-    os.environ["OPENPYXL_DEFUSEDXML"] = "True"
-    import openpyxl
-
-    if not getattr(openpyxl, "DEFUSEDXML", False):
-        raise BookError("defusedxml is required to read workbooks safely; pip install defusedxml")
-    return openpyxl
 
 
 def load_for_copy(path: Path) -> Any:
