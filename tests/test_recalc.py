@@ -29,6 +29,7 @@ from xlbridge.runner.formula import (
     Unsupported,
     calls_xb,
     parse_xb_formula,
+    reference_texts,
 )
 from xlbridge.runner.recalc import evaluate_book
 
@@ -101,6 +102,30 @@ def test_reader_reads_the_argument_kinds() -> None:
 def test_reader_refuses_what_it_cannot_evaluate(formula: str, message: str) -> None:
     with pytest.raises(Unsupported, match=message):
         parse_xb_formula(formula)
+
+
+def test_reader_reads_typed_spills_error_values_and_signed_constants() -> None:
+    """The typed spill form is read outside text and quoted sheet names only; error values
+    are any of the spreadsheet's, in any case; numbers keep their sign and exponent."""
+    c = parse_xb_formula("=XB_PREDICT('It''s'!D2#, \"A2# stays text\", #spill!, "
+                         "{-1,2.5e-3;\"a\",TRUE}, 0.5e-3, Sales[[#Headers],[Price]])")
+    assert c.args == (Spill(Ref("'It''s'!D2", Area("It's", 2, 4, 2, 4))),
+                      Literal("A2# stays text"), Literal("#SPILL!"),
+                      ArrayConst(((-1.0, 0.0025), ("a", True))), Literal(0.0005),
+                      Ref("Sales[[#Headers],[Price]]",
+                          parse_ref("Sales[[#Headers],[Price]]")))
+    with pytest.raises(Unsupported, match="unknown error literal"):
+        parse_xb_formula("=XB_COEFS(A1,B1,#NOPE!)")
+    with pytest.raises(Unsupported, match="no closing"):
+        parse_xb_formula('=XB_COEFS(A1,B1,"level=0.9)')
+
+
+def test_references_of_ordinary_formulas() -> None:
+    """Only references count as dependencies: not text, function names or numbers."""
+    assert reference_texts("=SUM('It''s'!A1:A3)+B1#*Sales[Price]&\"C9\"+my_y*2") == [
+        "'It''s'!A1:A3", "B1", "Sales[Price]", "my_y"]
+    assert reference_texts("=SUM(A1") == ["A1"]
+    assert reference_texts('="unclosed') == []
 
 
 def test_calls_xb_ignores_text_and_other_names() -> None:

@@ -130,7 +130,10 @@ def _rewrite(m: re.Match[str]) -> str:
 def _tokens(formula: str) -> list[Token]:
     """Tokens of a formula text (with or without its leading ``=``); raises Unsupported."""
     text = formula.strip()
-    text = _REWRITE.sub(_rewrite, text[1:] if text.startswith("=") else text)
+    text = text[1:] if text.startswith("=") else text
+    if ("#" in text or "\t" in text or "\r" in text
+            or text.count('"') % 2 or text.count("'") % 2):  # else nothing to rewrite
+        text = _REWRITE.sub(_rewrite, text)
     try:
         return _Tokenizer("=" + text).items
     except TokenizerError as exc:
