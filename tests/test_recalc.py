@@ -18,9 +18,8 @@ from openpyxl.worksheet.formula import ArrayFormula
 
 from xlbridge import worksheet
 from xlbridge.book.reader import open_book
-from xlbridge.book.recalc import evaluate_book
 from xlbridge.book.refs import Area, parse_ref
-from xlbridge.book.xbcall import (
+from xlbridge.runner.formula import (
     ArrayConst,
     Call,
     Literal,
@@ -30,7 +29,9 @@ from xlbridge.book.xbcall import (
     Unsupported,
     calls_xb,
     parse_xb_formula,
+    reference_texts,
 )
+from xlbridge.runner.recalc import evaluate_book
 
 from .bookfactory import cost_book, invented_cost_data, run, sha256, with_cached_values
 
@@ -101,6 +102,30 @@ def test_reader_reads_the_argument_kinds() -> None:
 def test_reader_refuses_what_it_cannot_evaluate(formula: str, message: str) -> None:
     with pytest.raises(Unsupported, match=message):
         parse_xb_formula(formula)
+
+
+def test_reader_reads_typed_spills_error_values_and_signed_constants() -> None:
+    """The typed spill form is read outside text and quoted sheet names only; error values
+    are any of the spreadsheet's, in any case; numbers keep their sign and exponent."""
+    c = parse_xb_formula("=XB_PREDICT('It''s'!D2#, \"A2# stays text\", #spill!, "
+                         "{-1,2.5e-3;\"a\",TRUE}, 0.5e-3, Sales[[#Headers],[Price]])")
+    assert c.args == (Spill(Ref("'It''s'!D2", Area("It's", 2, 4, 2, 4))),
+                      Literal("A2# stays text"), Literal("#SPILL!"),
+                      ArrayConst(((-1.0, 0.0025), ("a", True))), Literal(0.0005),
+                      Ref("Sales[[#Headers],[Price]]",
+                          parse_ref("Sales[[#Headers],[Price]]")))
+    with pytest.raises(Unsupported, match="unknown error literal"):
+        parse_xb_formula("=XB_COEFS(A1,B1,#NOPE!)")
+    with pytest.raises(Unsupported, match="no closing"):
+        parse_xb_formula('=XB_COEFS(A1,B1,"level=0.9)')
+
+
+def test_references_of_ordinary_formulas() -> None:
+    """Only references count as dependencies: not text, function names or numbers."""
+    assert reference_texts("=SUM('It''s'!A1:A3)+B1#*Sales[Price]&\"C9\"+my_y*2") == [
+        "'It''s'!A1:A3", "B1", "Sales[Price]", "my_y"]
+    assert reference_texts("=SUM(A1") == ["A1"]
+    assert reference_texts('="unclosed') == []
 
 
 def test_calls_xb_ignores_text_and_other_names() -> None:
@@ -313,8 +338,8 @@ def test_spill_references(tmp_path: Path) -> None:
 def test_results_that_would_overlap(tmp_path: Path) -> None:
     """B5's table (B5:J8) and A6's statistics (A6:B27) cross at B6:B8: the second one
     written gets a message, the first keeps its values."""
-    from xlbridge.book.recalc import write_results
     from xlbridge.book.writer import load_for_copy
+    from xlbridge.runner.write import write_results
 
     src = cost_book(tmp_path / "o.xlsx", formulas={"Model": {
         "B5": f"=XB_COEFS({D}!B:B,{D}!A:A,2)", "A6": f"=XB_STATS({D}!B:B,{D}!A:A,2)"}})

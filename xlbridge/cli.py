@@ -410,8 +410,9 @@ def _cell_rows(evaluation: Any) -> list[dict[str, Any]]:
 
 def _run_recalc(args: argparse.Namespace) -> int:
     from xlbridge.book import writer
-    from xlbridge.book.recalc import evaluate_book, write_results
     from xlbridge.book.safety import check_output
+    from xlbridge.runner.recalc import evaluate_book
+    from xlbridge.runner.write import write_results
 
     book = _open(args.book)
     src = book.path
@@ -468,7 +469,7 @@ def _configure_pin(p: argparse.ArgumentParser) -> None:
 
 
 def _evaluate_for_pins(path: str, what: str) -> Any:
-    from xlbridge.book.recalc import evaluate_book
+    from xlbridge.runner.recalc import evaluate_book
 
     book = _open(path)
     progress = _Progress(what)
@@ -480,8 +481,8 @@ def _evaluate_for_pins(path: str, what: str) -> Any:
 
 def _run_pin(args: argparse.Namespace) -> int:
     from xlbridge import __version__
-    from xlbridge.book.pins import pins_document
     from xlbridge.book.safety import check_output
+    from xlbridge.runner.pins import pins_document
 
     check_output(args.out, force=args.force, inputs=[Path(args.book)])
     evaluation = _evaluate_for_pins(args.book, "pin")
@@ -510,7 +511,7 @@ def _configure_verify(p: argparse.ArgumentParser) -> None:
 
 
 def _run_verify(args: argparse.Namespace) -> int:
-    from xlbridge.book.pins import compare, file_sha256, load_pins
+    from xlbridge.runner.pins import compare, file_sha256, load_pins
 
     if not (args.rtol >= 0 and math.isfinite(args.rtol)) or not (
             args.atol >= 0 and math.isfinite(args.atol)):

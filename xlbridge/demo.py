@@ -49,10 +49,11 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     from . import cells, worksheet
     from .book import writer
     from .book.reader import open_book
-    from .book.recalc import evaluate_book, write_results
     from .cells import models as model_cells
     from .plots import write_figures
     from .report import Source, write_report
+    from .runner.recalc import evaluate_book
+    from .runner.write import write_results
 
     start = time.perf_counter()
     out = Path(out)

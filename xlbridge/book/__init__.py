@@ -1,10 +1,11 @@
-"""Workbook files for the headless runner: reading values, resolving references, writing
-copies, evaluating XB_ formulas, pinning results.
+"""Workbook files: reading values, resolving references, writing copies. Imports nothing
+else of xlbridge (the runner above it evaluates formulas: :mod:`xlbridge.runner`).
 
 Modules (import what a command needs; nothing here imports openpyxl at import time):
-``refs`` reference text, ``safety`` hostile-file guards and atomic output, ``reader``
-values through python-calamine, ``writer`` copies through openpyxl, ``xbcall`` the XB_ call
-reader, ``recalc`` evaluation, ``pins`` pin files.
+``values`` what a cell can hold (error values, date serials), ``refs`` reference text,
+``safety`` hostile-file guards and atomic output, ``reader`` opening a workbook or CSV file
+(``workbook`` the Book base, ``xlsx`` values through python-calamine, ``csvbook`` CSV text),
+``formulas`` the formula cells of a workbook, ``writer`` copies through openpyxl.
 """
 
 from xlbridge.book.safety import BookError

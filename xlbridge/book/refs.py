@@ -34,7 +34,13 @@ class RefError(ValueError):
 
 
 def col_number(letters: str) -> int:
-    """``"A"`` -> 1, ``"XFD"`` -> 16384 (no range check)."""
+    """``"A"`` -> 1, ``"XFD"`` -> 16384 (no range check; the sheet's edge is checked where
+    references are read).
+
+    The one column-letter rule of the reading side. openpyxl.utils has the same
+    conversions, but importing openpyxl takes longer than a whole read of a small
+    workbook, and reading never needs it otherwise (only writing a copy does).
+    """
     n = 0
     for ch in letters.upper():
         n = n * 26 + (ord(ch) - 64)

@@ -1,6 +1,7 @@
 """Guards around workbook files: hostile archives, atomic output, formula-looking text.
 
-Nothing here imports openpyxl: the checks run before any parser sees the file.
+Nothing here imports openpyxl at import time: the checks run before any parser sees the
+file, and :func:`safe_openpyxl` imports it only so that it parses XML with defusedxml.
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ import tempfile
 import zipfile
 from collections.abc import Callable, Iterable
 from pathlib import Path
+from typing import Any
 
 __all__ = [
     "MAX_ENTRIES",
@@ -21,6 +23,7 @@ __all__ = [
     "check_archive",
     "check_output",
     "formula_safe_text",
+    "safe_openpyxl",
     "write_atomically",
 ]
 
@@ -235,3 +238,15 @@ def write_atomically(
     finally:
         with contextlib.suppress(OSError):
             tmp.unlink()
+
+
+def safe_openpyxl() -> Any:
+    """openpyxl, imported so that it parses XML with defusedxml."""
+    # openpyxl parses with defusedxml when it is installed, unless this variable says no;
+    # the runner insists (the archive was also checked before openpyxl sees it).
+    os.environ["OPENPYXL_DEFUSEDXML"] = "True"
+    import openpyxl
+
+    if not getattr(openpyxl, "DEFUSEDXML", False):
+        raise BookError("defusedxml is required to read workbooks safely; pip install defusedxml")
+    return openpyxl

@@ -7,8 +7,10 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from collections.abc import Sequence
 
-__all__ = ["EPOCH", "ERROR_TEXTS", "is_error_text", "serial_of", "date_of"]
+__all__ = ["EPOCH", "ERROR_TEXTS", "MESSAGE_PREFIX", "is_error_text", "is_message_cell",
+           "serial_of", "date_of"]
 
 #: Error values a spreadsheet program shows in a cell (the classic seven, the dynamic-array
 #: and data-type ones, and those of hosted runtimes). Anything else of the shape ``#WORD!``
@@ -20,6 +22,11 @@ ERROR_TEXTS = frozenset({
 })
 _ERROR_LIKE = re.compile(r"#[A-Z][A-Z0-9_/]*[!?]")
 
+#: How a message of ours begins. A worksheet function that cannot give a result returns one
+#: cell holding ``xlbridge: what to fix``, where a spreadsheet function would show an error
+#: value; fed back in as data it counts as one (:func:`is_error_text`).
+MESSAGE_PREFIX = "xlbridge:"
+
 #: Day 0 of the 1900 date system as the spreadsheet counts it (serial 1 is 1900-01-01 only
 #: after the historical leap-day bug; from 1900-03-01 on, serial = days since this date).
 EPOCH = dt.datetime(1899, 12, 30)
@@ -30,7 +37,18 @@ def is_error_text(text: str) -> bool:
     ours (``xlbridge: ...``) fed back in as data."""
     s = text.strip()
     return (s.upper() in ERROR_TEXTS or bool(_ERROR_LIKE.fullmatch(s))
-            or s.lower().startswith("xlbridge:"))
+            or s.lower().startswith(MESSAGE_PREFIX))
+
+
+def is_message_cell(table: Sequence[Sequence[object]]) -> bool:
+    """True when a worksheet function's result is its one-cell message instead of a table.
+
+    This is the cell protocol of the XB_ functions (what a cell shows), read by callers
+    that place results (the runner); why a function failed is said in the message for the
+    reader, never decided from its words.
+    """
+    return (len(table) == 1 and len(table[0]) == 1 and isinstance(table[0][0], str)
+            and table[0][0].lower().startswith(MESSAGE_PREFIX))
 
 
 def serial_of(v: dt.date | dt.time | dt.timedelta) -> float:

@@ -7,13 +7,12 @@ openpyxl re-saves only what it understands, so the runner never writes to its in
 from __future__ import annotations
 
 import math
-import os
 import zipfile
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-from xlbridge.book.safety import BookError, check_archive, write_atomically
+from xlbridge.book.safety import BookError, check_archive, safe_openpyxl, write_atomically
 
 __all__ = [
     "OPENPYXL_LOSSES",
@@ -77,21 +76,10 @@ def losses_in(path: Path) -> list[str]:
     return out
 
 
-def _openpyxl() -> Any:
-    # openpyxl parses with defusedxml when it is installed, unless this variable says no;
-    # the runner insists (the archive was also checked before openpyxl sees it).
-    os.environ["OPENPYXL_DEFUSEDXML"] = "True"
-    import openpyxl
-
-    if not getattr(openpyxl, "DEFUSEDXML", False):
-        raise BookError("defusedxml is required to read workbooks safely; pip install defusedxml")
-    return openpyxl
-
-
 def load_for_copy(path: Path) -> Any:
     """openpyxl workbook of an .xlsx/.xlsm input (formulas, not values), for a copy."""
     check_archive(path)
-    openpyxl = _openpyxl()
+    openpyxl = safe_openpyxl()
     import warnings
 
     try:
@@ -108,7 +96,7 @@ def load_for_copy(path: Path) -> Any:
 
 def new_workbook_from_rows(sheet: str, rows: Iterable[Sequence[Any]]) -> Any:
     """A new workbook holding CSV rows (the copy of a .csv input)."""
-    openpyxl = _openpyxl()
+    openpyxl = safe_openpyxl()
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.title = unique_sheet_title(wb, sheet[:31] or "data", replace_active=True)
@@ -132,9 +120,10 @@ def set_value(cell: Any, value: Any) -> None:
         return
     if type(value) is float and math.isfinite(value) and float(format(value, ".16g")) != value:
         # openpyxl writes numbers with 16 significant digits, which does not round-trip
-        # every double; the number text is handed over ready-made (17 digits) instead.
-        cell.value = value
-        cell._value = repr(value)
+        # every double; the shortest text that does (repr, up to 17 digits) is handed over
+        # ready-made, and the cell is marked a number so the text goes into the file as is.
+        cell.value = repr(value)
+        cell.data_type = "n"
         return
     cell.value = value
 

@@ -23,8 +23,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from xlbridge.book.recalc import Evaluation, XbCell
 from xlbridge.book.safety import BookError
+from xlbridge.runner.recalc import Evaluation, XbCell
 
 __all__ = ["Drift", "PIN_FORMAT", "compare", "load_pins", "pins_document"]
 

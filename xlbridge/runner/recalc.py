@@ -1,28 +1,29 @@
 """Evaluate the XB_ formulas of a workbook with the worksheet functions themselves.
 
-Steps: find every formula cell (openpyxl: plain formulas and ``ArrayFormula``), keep those
-that call an XB_ function, read each call (:mod:`xlbridge.book.xbcall`), order the cells so
-that a cell reading another XB_ cell's result comes after it, and call the function in
+Steps: take the formula cells of the workbook (:mod:`xlbridge.book.formulas`), keep those
+that call an XB_ function, read each call (:mod:`xlbridge.runner.formula`), order the cells
+so that a cell reading another XB_ cell's result comes after it, and call the function in
 ``xlbridge.worksheet.FUNCTIONS`` with the raw values xlwings would hand it.  A cell whose
 arguments cannot be evaluated exactly gets a message instead of a value.
 
-Used by ``xlbridge recalc`` (writes the results into a copy) and ``pin`` / ``verify``.
+Used by ``xlbridge recalc`` (results into a copy: :mod:`xlbridge.runner.write`) and
+``pin`` / ``verify`` (:mod:`xlbridge.runner.pins`).
 """
 
 from __future__ import annotations
 
 import inspect
 import re
-import zipfile
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
+from xlbridge.book.formulas import FormulaCell, FormulaIndex, formula_index
 from xlbridge.book.reader import Book, missing_value_message, xlwings_shape
-from xlbridge.book.refs import Area, RefError, parse_ref
+from xlbridge.book.refs import Area, RefError
 from xlbridge.book.safety import BookError
-from xlbridge.book.xbcall import (
+from xlbridge.book.values import is_message_cell
+from xlbridge.runner.formula import (
     ArrayConst,
     Call,
     Literal,
@@ -31,23 +32,14 @@ from xlbridge.book.xbcall import (
     Spill,
     Unsupported,
     calls_xb,
-    end_of_quoted,
     parse_xb_formula,
+    reference_texts,
 )
 
-__all__ = ["FormulaCell", "XbCell", "Evaluation", "evaluate_book", "formula_index",
-           "write_results"]
+__all__ = ["BadCall", "CircularReference", "EvaluationError", "Evaluation", "NoInputValue",
+           "XbCell", "evaluate_book"]
 
 Progress = Callable[[int, int, str], None]
-
-
-@dataclass(frozen=True)
-class FormulaCell:
-    sheet: str
-    row: int
-    col: int
-    text: str  # with leading "="
-    array_ref: Area | None = None  # set for array formulas
 
 
 @dataclass
@@ -82,7 +74,7 @@ class XbCell:
 
     @property
     def ok(self) -> bool:
-        return self.result is not None and not _is_message(self.result)
+        return self.result is not None and not is_message_cell(self.result)
 
     def output_area(self) -> Area:
         """Where the result goes: the anchor with the result's shape."""
@@ -103,141 +95,26 @@ class XbCell:
                     max(out.r2, arr.r2), max(out.c2, arr.c2))
 
 
-def _is_message(result: list[list[Any]]) -> bool:
-    return (
-        len(result) == 1 and len(result[0]) == 1 and isinstance(result[0][0], str)
-        and result[0][0].lower().startswith("xlbridge:")
-    )
-
-
-# --- finding formulas ------------------------------------------------------------------
-
-
-def _cell_formula(cell: Any, sheet: str) -> FormulaCell | None:
-    if getattr(cell, "data_type", None) != "f":
-        return None
-    v = cell.value
-    text = getattr(v, "text", None)
-    if text is not None:  # openpyxl ArrayFormula
-        try:
-            ref = parse_ref(v.ref)
-        except RefError:
-            ref = None
-        area = ref.with_sheet(sheet) if isinstance(ref, Area) else None
-        t = str(text)
-        return FormulaCell(sheet, cell.row, cell.column, t if t.startswith("=") else "=" + t,
-                           area)
-    if isinstance(v, str):
-        return FormulaCell(sheet, cell.row, cell.column, v if v.startswith("=") else "=" + v)
-    return None
-
-
-def _sheets_with_formulas(path: Path, book: Book) -> list[str]:
-    """Sheets whose XML holds a formula at all (a byte test; data sheets are skipped)."""
-    parts = book._structure_or_empty().sheet_parts  # noqa: SLF001 - same package
-    out = []
-    with zipfile.ZipFile(path) as zf:
-        for name in book.sheet_names:
-            part = parts.get(name)
-            if part is None:
-                out.append(name)
-                continue
-            data = zf.read(part)
-            if b"<f" in data or b"<sheetData" not in data:
-                out.append(name)
-    return out
-
-
-def formula_index(book: Book, workbook: Any = None) -> dict[str, dict[tuple[int, int],
-                                                                         FormulaCell]]:
-    """Every formula cell by sheet, from an open openpyxl workbook or (read-only) the file."""
-    index: dict[str, dict[tuple[int, int], FormulaCell]] = {s: {} for s in book.sheet_names}
-    if book.kind == "csv":
-        return index
-    if workbook is None:
-        from xlbridge.book.writer import _openpyxl
-
-        openpyxl = _openpyxl()
-        import warnings
-
-        wanted = _sheets_with_formulas(book.path, book)
-        if not wanted:
-            return index
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            try:
-                wb = openpyxl.load_workbook(book.path, read_only=True, data_only=False,
-                                            keep_links=False)
-            except Exception as exc:
-                raise BookError(f"{book.path.name}: formulas cannot be read: {exc}") from None
-            try:
-                for name in wanted:
-                    if name not in wb.sheetnames:
-                        continue
-                    _index_sheet(index[name], wb[name], name)
-            finally:
-                wb.close()
-        return index
-    for ws in workbook.worksheets:
-        if ws.title in index:
-            _index_sheet(index[ws.title], ws, ws.title)
-    return index
-
-
-def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str) -> None:
-    cells = getattr(ws, "_cells", None)
-    it = cells.values() if cells is not None else (c for row in ws.iter_rows() for c in row)
-    for cell in it:
-        f = _cell_formula(cell, name)
-        if f is not None:
-            dest[(f.row, f.col)] = f
-
-
-# --- references inside ordinary formulas (dependency detection only) -------------------
-
-def _formula_refs(text: str) -> list[str]:
-    """Tokens of a formula that may be references (used to find dependencies, not to
-    compute anything)."""
-    body = text[1:] if text.startswith("=") else text
-    tokens: list[str] = []
-    cur = ""
-    depth = 0
-    i = 0
-    while i < len(body):
-        ch = body[i]
-        if ch == '"':
-            i = end_of_quoted(body, i)
-            if cur:
-                tokens.append(cur)
-            cur = ""
-            continue
-        if ch == "'" and depth == 0:
-            j = end_of_quoted(body, i)
-            cur += body[i:j]
-            i = j
-            continue
-        if ch == "[":
-            depth += 1
-        elif ch == "]":
-            depth -= 1
-        if depth == 0 and ch in "(),+-*/^&=<>;{}% \t\r\n":
-            if cur and ch != "(":
-                tokens.append(cur)
-            cur = ""  # a token followed by "(" is a function name
-            i += 1
-            continue
-        cur += ch
-        i += 1
-    if cur:
-        tokens.append(cur)
-    return tokens
-
-
 # --- evaluation --------------------------------------------------------------------------
 
 
-class _CannotEvaluate(Exception):
-    pass
+class EvaluationError(Exception):
+    """The arguments of an XB_ call cannot be evaluated exactly; the message says why
+    (the cell then shows it instead of a value: the runner never guesses one)."""
+
+
+class CircularReference(EvaluationError):
+    """An argument reads the cell's own result, or a result that cannot come first."""
+
+
+class NoInputValue(EvaluationError):
+    """An argument reads a cell without a value: an XB_ cell that failed, a formula whose
+    value was never saved, or a spill reference to a cell that holds no spilled result."""
+
+
+class BadCall(EvaluationError):
+    """The call itself is wrong: unknown function, wrong number of arguments, or a
+    reference that does not resolve in this workbook."""
 
 
 @dataclass
@@ -246,7 +123,7 @@ class Evaluation:
 
     book: Book
     cells: list[XbCell]
-    formulas: dict[str, dict[tuple[int, int], FormulaCell]]
+    formulas: FormulaIndex
 
     @property
     def n_ok(self) -> int:
@@ -258,7 +135,7 @@ class Evaluation:
 
 
 class _Evaluator:
-    def __init__(self, book: Book, formulas: dict[str, dict[tuple[int, int], FormulaCell]],
+    def __init__(self, book: Book, formulas: FormulaIndex,
                  functions: dict[str, Callable[..., Any]]) -> None:
         self.book = book
         self.formulas = formulas
@@ -290,7 +167,7 @@ class _Evaluator:
             return self._taint_memo[key]
         self._taint_memo[key] = None  # cycles among ordinary formulas end here
         found = None
-        for tok in _formula_refs(f.text):
+        for tok in reference_texts(f.text):
             try:
                 area = self.book.resolve(tok, default_sheet=f.sheet)
             except (BookError, RefError, ValueError):
@@ -314,23 +191,23 @@ class _Evaluator:
     def _read(self, area: Area, me: XbCell) -> Any:
         sheet = area.sheet or me.sheet
         if me.region().intersects(area):
-            raise _CannotEvaluate(
+            raise CircularReference(
                 f"{area.label()} overlaps the cell's own result (a circular reference)"
             )
         owners = self._xb_regions_hit(area)
         for o in owners:
             if id(o) not in self.done:
-                raise _CannotEvaluate(
+                raise CircularReference(
                     f"{area.label()} reads the result of {o.label}, which could not be "
                     "evaluated first (circular XB_ references?)"
                 )
             if not o.ok:
-                raise _CannotEvaluate(f"{area.label()} reads {o.label}, which has no result "
+                raise NoInputValue(f"{area.label()} reads {o.label}, which has no result "
                                       f"({_first_line(o)})")
         missing = [rc for rc in self.book.formulas_without_value(area)
                    if not any(o.region().contains(*rc) for o in owners)]
         if missing:
-            raise _CannotEvaluate(missing_value_message(self.book.path.name, sheet, missing)
+            raise NoInputValue(missing_value_message(self.book.path.name, sheet, missing)
                                   .removeprefix("xlbridge: "))
         me.reads.append(area)
         block = self.book.read_area(area)
@@ -355,15 +232,15 @@ class _Evaluator:
         owner = self.by_anchor.get((anchor.sheet, anchor.r1, anchor.c1))
         if owner is not None:
             if owner is me:
-                raise _CannotEvaluate(f"{anchor.label()}# is the cell's own result")
+                raise CircularReference(f"{anchor.label()}# is the cell's own result")
             if id(owner) not in self.done or not owner.ok:
-                raise _CannotEvaluate(f"{anchor.label()}# has no result "
+                raise NoInputValue(f"{anchor.label()}# has no result "
                                       f"({_first_line(owner) or 'not evaluated'})")
             return owner.output_area()
         f = self.formulas.get(anchor.sheet or "", {}).get((anchor.r1, anchor.c1))
         if f is not None and f.array_ref is not None:
             return f.array_ref
-        raise _CannotEvaluate(f"{anchor.label()}# refers to a cell that holds no spilled "
+        raise NoInputValue(f"{anchor.label()}# refers to a cell that holds no spilled "
                               "result")
 
     def _arg(self, arg: Any, me: XbCell, areas: dict[int, Area]) -> Any:
@@ -380,13 +257,13 @@ class _Evaluator:
         if isinstance(arg, Call):
             result = self._call(arg, me)
             return xlwings_shape(result)
-        raise _CannotEvaluate(f"argument {arg!r} cannot be evaluated")  # pragma: no cover
+        raise BadCall(f"argument {arg!r} cannot be evaluated")  # pragma: no cover
 
     def _call(self, call: Call, me: XbCell) -> list[list[Any]]:
         fn = self.functions.get(call.name)
         if fn is None:
             known = ", ".join(sorted(self.functions))
-            raise _CannotEvaluate(
+            raise BadCall(
                 f"{call.name} is not a function of this xlbridge version (functions: {known})"
             )
         params = list(inspect.signature(fn).parameters.values())
@@ -394,7 +271,7 @@ class _Evaluator:
         if not (len(required) <= len(call.args) <= len(params)):
             sig = ", ".join(p.name if p.default is inspect.Parameter.empty else f"[{p.name}]"
                             for p in params)
-            raise _CannotEvaluate(
+            raise BadCall(
                 f"{call.name} takes ({sig}); the formula gives {len(call.args)} argument"
                 f"{'s' if len(call.args) != 1 else ''}"
             )
@@ -405,12 +282,12 @@ class _Evaluator:
             resolved = self.book.resolve_together([a.target for a in refs],
                                                   default_sheet=me.sheet)
         except (BookError, RefError) as exc:
-            raise _CannotEvaluate(str(exc)) from None
+            raise BadCall(str(exc)) from exc
         areas = {id(a): area for a, area in zip(refs, resolved)}
         values = [self._arg(a, me, areas) for a in call.args]
         result = fn(*values)
         table = _as_table(result)
-        if call.single and not _is_message(table):
+        if call.single and not is_message_cell(table):
             table = [[table[0][0]]]
         return table
 
@@ -516,8 +393,8 @@ class _Evaluator:
         assert x.call is not None
         try:
             x.result = self._call(x.call, x)
-            x.message = _first_line(x) if _is_message(x.result) else None
-        except _CannotEvaluate as exc:
+            x.message = _first_line(x) if is_message_cell(x.result) else None
+        except EvaluationError as exc:
             x.result = None
             x.message = "xlbridge: " + str(exc)
         except Exception as exc:  # a worksheet function never raises; keep the cell honest
@@ -526,7 +403,7 @@ class _Evaluator:
 
 
 def _first_line(x: XbCell) -> str:
-    if x.result is not None and _is_message(x.result):
+    if x.result is not None and is_message_cell(x.result):
         return str(x.result[0][0])
     return x.message or ""
 
@@ -575,76 +452,3 @@ def evaluate_book(book: Book, workbook: Any = None, progress: Progress | None = 
     ev = _Evaluator(book, formulas, functions or _worksheet_functions())
     ev.run(progress)
     return Evaluation(book, ev.cells, formulas)
-
-
-# --- writing results into a copy ---------------------------------------------------------
-
-
-@dataclass
-class WriteReport:
-    written: int = 0
-    conflicts: list[str] = field(default_factory=list)
-    plain_multi: int = 0  # plain (non-array) formulas whose result spans several cells
-
-
-def write_results(evaluation: Evaluation, workbook: Any) -> WriteReport:
-    """Replace each XB_ formula of the openpyxl ``workbook`` by its values (or message)."""
-    from xlbridge.book.writer import set_value
-
-    rep = WriteReport()
-    cells = evaluation.cells
-    written: list[XbCell] = []
-    for x in cells:
-        ws = workbook[x.sheet]
-        arr = x.formula.array_ref
-        if arr is not None:
-            for r in range(arr.r1, arr.r2 + 1):
-                for c in range(arr.c1, arr.c2 + 1):
-                    ws.cell(r, c).value = None
-        anchor = ws.cell(x.formula.row, x.formula.col)
-        if not x.ok:
-            set_value(anchor, x.message or "xlbridge: no result")
-            continue
-        assert x.result is not None
-        out = x.output_area()
-        cell = _blocked(evaluation, x, out)
-        blocked = f"{cell} is not empty" if cell else None
-        if blocked is None:
-            clash = next((o for o in written if o.output_area().intersects(out)), None)
-            if clash is not None:
-                blocked = f"it overlaps the result of {clash.label}"
-        if blocked:
-            msg = (f"xlbridge: the result needs {out.cells_text()} but {blocked} (a "
-                   "spreadsheet shows #SPILL!); clear those cells or move the formula")
-            set_value(anchor, msg)
-            rep.conflicts.append(f"{x.label}: {msg}")
-            x.message = msg
-            x.result = None
-            continue
-        for i, row in enumerate(x.result):
-            for j, v in enumerate(row):
-                set_value(ws.cell(out.r1 + i, out.c1 + j), v)
-        if arr is None and (out.n_rows > 1 or out.n_cols > 1):
-            rep.plain_multi += 1
-        rep.written += 1
-        written.append(x)
-    return rep
-
-
-def _blocked(evaluation: Evaluation, x: XbCell, out: Area) -> str | None:
-    """First cell of ``out`` holding data or a formula that is not this cell's own."""
-    book = evaluation.book
-    formulas = evaluation.formulas.get(x.sheet, {})
-    arr = x.formula.array_ref
-    block = book.read_area(out)
-    for i in range(out.n_rows):
-        for j in range(out.n_cols):
-            r, c = out.r1 + i, out.c1 + j
-            if (r, c) == (x.formula.row, x.formula.col) or (arr and arr.contains(r, c)):
-                continue
-            other = next((o for o in evaluation.cells if o is not x
-                          and o.formula.array_ref and o.formula.array_ref.contains(r, c)
-                          and o.sheet == x.sheet), None)
-            if (r, c) in formulas or block[i][j] is not None or other is not None:
-                return Area(x.sheet, r, c, r, c).cells_text()
-    return None
