@@ -5,8 +5,10 @@ Nothing here imports openpyxl: the checks run before any parser sees the file.
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import os
+import re
 import stat
 import tempfile
 import zipfile
@@ -50,12 +52,81 @@ def _size_text(n: int) -> str:
     raise AssertionError  # pragma: no cover
 
 
-def _xml_prolog_has_dtd(head: bytes) -> bool | None:
+#: Byte-order marks, longest first (the UTF-32 LE mark begins with the UTF-16 LE one).
+_BOMS = (
+    (b"\x00\x00\xfe\xff", "utf-32-be"),
+    (b"\xff\xfe\x00\x00", "utf-32-le"),
+    (b"\xef\xbb\xbf", "utf-8"),
+    (b"\xfe\xff", "utf-16-be"),
+    (b"\xff\xfe", "utf-16-le"),
+)
+#: Zero bytes around the first character betray UTF-16/UTF-32 written without a mark
+#: (True = a zero byte); the UTF-32 patterns are tried first.
+_WIDE_PATTERNS = (
+    ((True, True, True, False), "utf-32-be"),
+    ((False, True, True, True), "utf-32-le"),
+    ((True, False), "utf-16-be"),
+    ((False, True), "utf-16-le"),
+)
+_EBCDIC_START = b"\x4c\x6f\xa7\x94"  # "<?xm" in EBCDIC, which some parsers read
+_WIDE_CODECS = frozenset({"utf-16", "utf-16-be", "utf-16-le", "utf-32", "utf-32-be",
+                          "utf-32-le"})
+#: An XML declaration naming its encoding, matched in ASCII only (so that its length in
+#: characters is its length in bytes in every 8-bit reading).
+_DECL_CHAR = r"[\t\n\r\x20-\x3d\x40-\x7e]"  # printable ASCII except > and ?
+_DECLARATION = re.compile(
+    rf"""\A[\t\n\r ]*<\?xml[\t\n\r ]{_DECL_CHAR}*?\bencoding[\t\n\r ]*=[\t\n\r ]*"""
+    rf"""(["'])([A-Za-z][A-Za-z0-9._-]{{0,39}})\1{_DECL_CHAR}*\?>""")
+
+
+class _UnknownEncoding(Exception):
+    """A part declares a character encoding that cannot be decoded here."""
+
+
+def _decoded(data: bytes, codec: str) -> str:
+    try:
+        return data.decode(codec, errors="replace")
+    except (LookupError, UnicodeError, ValueError) as exc:
+        raise _UnknownEncoding(codec) from exc
+
+
+def _xml_readings(head: bytes) -> list[str]:
+    """The start of an XML part as each parser may read it.
+
+    A byte-order mark decides; without one, the zero bytes around the first character show
+    UTF-16 or UTF-32; otherwise the part is 8-bit (UTF-8, or EBCDIC by its first bytes) and
+    the encoding named in the XML declaration applies after the declaration, so that reading
+    is checked as well. Raises _UnknownEncoding for a declared encoding Python cannot decode.
+    """
+    bom, codec = next(((b, c) for b, c in _BOMS if head.startswith(b)), (b"", "utf-8"))
+    start = len(bom)
+    if not bom:
+        zeros = tuple(b == 0 for b in head[:4])
+        for pattern, wide in _WIDE_PATTERNS:
+            if zeros[: len(pattern)] == pattern:
+                codec = wide
+                break
+        else:
+            if head.startswith(_EBCDIC_START):
+                codec = "cp037"
+    text = _decoded(head[start:], codec)
+    if codec in _WIDE_CODECS:
+        return [text]  # the width is fixed by now; a declaration cannot change it
+    m = _DECLARATION.match(text)
+    if m is None:
+        return [text]
+    try:
+        declared = codecs.lookup(m.group(2)).name
+    except LookupError:
+        raise _UnknownEncoding(m.group(2)) from None
+    if declared in (codec, *_WIDE_CODECS):
+        return [text]  # parsers keep reading 8-bit text when the declaration says UTF-16
+    # The declaration is single-byte text here, so its length in characters is in bytes too.
+    return [text, text[: m.end()] + _decoded(head[start + m.end():], declared)]
+
+
+def _scan_prolog(text: str, complete: bool) -> bool | None:
     """True if a DOCTYPE comes before the root element, False if not, None if unclear."""
-    if head.startswith((b"\xff\xfe", b"\xfe\xff")):
-        text = head.decode("utf-16", errors="replace")
-    else:
-        text = head.decode("utf-8", errors="replace").lstrip("\ufeff")
     i, n = 0, len(text)
     while i < n:
         if text[i].isspace():
@@ -77,7 +148,15 @@ def _xml_prolog_has_dtd(head: bytes) -> bool | None:
             return False
         else:
             return False  # not XML (binary part); its parser is not an XML one
-    return None if len(head) >= _PROLOG_LIMIT else False
+    return False if complete else None
+
+
+def _xml_prolog_has_dtd(head: bytes) -> bool | None:
+    """True if any reading of the part has a DTD before its root element, None if unclear."""
+    verdicts = [_scan_prolog(t, len(head) < _PROLOG_LIMIT) for t in _xml_readings(head)]
+    if any(verdicts):
+        return True
+    return None if None in verdicts else False
 
 
 def check_archive(path: Path) -> None:
@@ -151,7 +230,14 @@ def check_archive(path: Path) -> None:
                     head = part.read(_PROLOG_LIMIT)
             except (zipfile.BadZipFile, OSError, NotImplementedError, RuntimeError) as exc:
                 raise BookError(f"{name}: part {info.filename} cannot be read: {exc}") from None
-            verdict = _xml_prolog_has_dtd(head)
+            try:
+                verdict = _xml_prolog_has_dtd(head)
+            except _UnknownEncoding as exc:
+                raise BookError(
+                    f"{name}: part {info.filename} is in the character encoding "
+                    f"{str(exc)!r}, which cannot be checked for entity declarations; refused. "
+                    "Open the workbook in a spreadsheet program and save it again"
+                ) from None
             if verdict is None or verdict:
                 raise BookError(
                     f"{name}: part {info.filename} declares a DTD or entities (an XML attack "
