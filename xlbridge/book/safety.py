@@ -1,4 +1,4 @@
-"""Guards around workbook files: hostile archives, atomic output, formula-looking text.
+"""Guards around workbook files: hostile archives, safe output, formula-looking text.
 
 Nothing here imports openpyxl: the checks run before any parser sees the file.
 """
@@ -9,9 +9,12 @@ import codecs
 import contextlib
 import os
 import re
+import secrets
+import socket
 import stat
-import tempfile
+import time
 import zipfile
+import zlib
 from collections.abc import Callable, Iterable
 from pathlib import Path
 
@@ -19,10 +22,14 @@ __all__ = [
     "MAX_ENTRIES",
     "MAX_ENTRY_RATIO",
     "MAX_UNZIPPED_BYTES",
+    "STALE_TEMP_SECONDS",
+    "TEMP_PREFIX",
     "BookError",
     "check_archive",
     "check_output",
     "formula_safe_text",
+    "publish",
+    "remove_stale_temps",
     "write_atomically",
 ]
 
@@ -259,7 +266,11 @@ def _lock_file(path: Path) -> Path:
 
 
 def check_output(out: Path, *, force: bool, inputs: Iterable[Path] = ()) -> None:
-    """Refuse an output that is an input, exists without --force, is read-only or open."""
+    """Refuse an output that is an input, exists without --force, is read-only or open.
+
+    Anything at ``out`` counts as existing, a symbolic link to a missing file included.
+    This is the early, friendly check; ``publish`` enforces the rule again at the last step.
+    """
     for src in inputs:
         try:
             same = out.exists() and os.path.samefile(out, src)
@@ -279,38 +290,198 @@ def check_output(out: Path, *, force: bool, inputs: Iterable[Path] = ()) -> None
             f"{out.name} is open in another program (lock file {_lock_file(out).name} "
             "found); close it there, or write to another file"
         )
-    if out.exists():
-        if not force:
-            raise BookError(f"{out} already exists; add --force to replace it")
-        mode = out.stat().st_mode
-        if not (mode & stat.S_IWUSR) or not os.access(out, os.W_OK):
-            raise BookError(f"{out} is read-only; make it writable or write to another file")
+    if not os.path.lexists(out):
+        return
+    dangling = not out.exists()
+    if not force:
+        if dangling:
+            raise BookError(f"{out} already exists as a link to a missing file; add --force "
+                            "to replace the link, or write to another file")
+        raise BookError(f"{out} already exists; add --force to replace it")
+    if dangling:
+        return  # --force replaces the link itself; there is no file to be read-only
+    mode = out.stat().st_mode
+    if not (mode & stat.S_IWUSR) or not os.access(out, os.W_OK):
+        raise BookError(f"{out} is read-only; make it writable or write to another file")
+
+
+# --- temporary files -----------------------------------------------------------------------------
+
+#: Every temporary file we write starts with this, followed by
+#: ``<host tag>-<pid>-<random>-<output name>``, so a later run can tell ours from anything else.
+TEMP_PREFIX = ".xlbridge-tmp-"
+#: A temporary file of ours untouched for this long is left over from a run that died: a save
+#: writes continuously and takes seconds to minutes, never an hour without a write.
+STALE_TEMP_SECONDS = 3600
+_TEMP_NAME = re.compile(re.escape(TEMP_PREFIX) + r"([0-9a-f]{6})-([1-9][0-9]{0,9})-[0-9a-f]{8}-")
+_NAME_BYTES = 100  # of the output name kept in a temporary name (file names max. 255 bytes)
+
+
+def _host_tag() -> str:
+    # Process ids mean something only on the machine that issued them; the tag tells whether
+    # a temporary file in a shared folder was written here.
+    return f"{zlib.crc32(socket.gethostname().encode('utf-8', 'replace')) & 0xFFFFFF:06x}"
+
+
+def _short_name(name: str) -> str:
+    suffix = Path(name).suffix[:16]
+    stem = name[: len(name) - len(suffix)] if suffix else name
+    while stem and len(os.fsencode(stem + suffix)) > _NAME_BYTES:
+        stem = stem[:-1]
+    return stem + suffix
+
+
+def _pid_running(pid: int) -> bool:
+    if os.name != "posix":
+        return True  # os.kill(pid, 0) would end the process on Windows; the age rule applies
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # running, under another user
+    except (OverflowError, OSError):
+        return False  # not a process id this system can have
+    return True
+
+
+def remove_stale_temps(folder: Path, *, now: float | None = None) -> list[Path]:
+    """Remove our temporary files in ``folder`` left by runs that died; returns them.
+
+    A temporary file is stale when the process that wrote it, on this machine, is no longer
+    running, or when it has not been written to for STALE_TEMP_SECONDS (a run on another
+    machine sharing the folder, or a process id reused since). Files not named by us, links
+    and folders are never touched; a file that cannot be removed is left in peace.
+    """
+    now = time.time() if now is None else now
+    here = _host_tag()
+    removed = []
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for entry in entries:
+        m = _TEMP_NAME.match(entry.name)
+        if m is None:
+            continue
+        try:
+            st = entry.stat(follow_symlinks=False)
+        except OSError:
+            continue
+        if not stat.S_ISREG(st.st_mode):
+            continue
+        dead = m.group(1) == here and not _pid_running(int(m.group(2)))
+        if dead or now - st.st_mtime > STALE_TEMP_SECONDS:
+            with contextlib.suppress(OSError):
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+    return removed
+
+
+def _new_temp(out: Path) -> Path:
+    """Create an empty temporary file beside ``out``, with the mode the umask gives."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+    stem = f"{TEMP_PREFIX}{_host_tag()}-{os.getpid()}-"
+    for _ in range(100):
+        tmp = out.with_name(f"{stem}{secrets.token_hex(4)}-{_short_name(out.name)}")
+        try:
+            fd = os.open(tmp, flags, 0o666)
+        except FileExistsError:
+            continue
+        except OSError as exc:
+            raise BookError(f"cannot write in {out.parent}: {exc.strerror or exc} (is the "
+                            "folder read-only?)") from None
+        os.close(fd)
+        return tmp
+    raise BookError(f"cannot create a temporary file in {out.parent}")  # pragma: no cover
+
+
+# --- publishing ----------------------------------------------------------------------------------
+
+
+def _appeared(out: Path) -> BookError:
+    return BookError(
+        f"{out} appeared while this run was writing it (another program or run created it); "
+        "it was not replaced. Add --force to replace it, or write to another file"
+    )
+
+
+def publish(tmp: Path, out: Path, *, force: bool) -> None:
+    """Put the finished file ``tmp`` at ``out`` in one step; ``tmp`` is gone afterwards.
+
+    With ``force`` an existing ``out`` is replaced atomically. Without it nothing at ``out``
+    (a file, a folder, a link, even one to a missing file) is ever replaced: the step that
+    creates the name fails if the name is taken, so there is no moment between a check and
+    the rename in which another file could appear and be lost. Raises BookError then.
+    """
+    if force:
+        os.replace(tmp, out)
+        return
+    # A hard link is created only if the name is free (lstat semantics), atomically.
+    try:
+        os.link(tmp, out)
+    except FileExistsError:
+        raise _appeared(out) from None
+    except OSError:
+        _publish_by_reservation(tmp, out)  # no hard links here (FAT, exFAT, some shares)
+    else:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+
+
+def _publish_by_reservation(tmp: Path, out: Path) -> None:
+    # Where hard links are unsupported, the name is reserved by creating it exclusively
+    # (O_EXCL also fails on a link to a missing file) and the finished file is renamed over
+    # that empty placeholder of ours. Another no-clobber writer cannot take the name; what the
+    # rename can replace is only our placeholder, or what a program that overwrites without
+    # looking wrote into it in the instant between the two calls. This is portable, unlike a
+    # no-replace rename (renameat2 or renamex_np through ctypes, filesystem permitting).
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+    try:
+        fd = os.open(out, flags, 0o600)
+    except FileExistsError:
+        raise _appeared(out) from None
+    try:
+        mine = os.fstat(fd)
+    finally:
+        os.close(fd)
+    try:
+        os.replace(tmp, out)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            now = os.lstat(out)
+            if (now.st_dev, now.st_ino) == (mine.st_dev, mine.st_ino):
+                os.unlink(out)  # our placeholder, never anyone else's file
+        raise
 
 
 def write_atomically(
-    out: Path, write: Callable[[Path], None], *, force: bool, inputs: Iterable[Path] = ()
+    out: Path, write: Callable[[Path], None], *, force: bool, inputs: Iterable[Path] = (),
+    mode_from: Path | None = None,
 ) -> None:
-    """Write to a temporary file beside ``out`` with ``write(tmp)``, then rename it into place.
+    """Write ``out`` through a temporary file beside it: ``write(tmp)`` fills it, ``publish``
+    puts it in place.
 
-    A failure at any point leaves ``out`` as it was (absent or the old file).
+    Without ``force`` no existing path is replaced, even one that appears during the write.
+    A failure at any point leaves ``out`` as it was and no temporary file. The new file gets
+    the mode the umask gives, or the permission bits of ``mode_from`` (a copy of an input)
+    plus read and write for the owner.
+    Stale temporary files of earlier runs in the folder are removed first.
     """
     inputs = list(inputs)
     check_output(out, force=force, inputs=inputs)
-    try:
-        fd, tmp_name = tempfile.mkstemp(
-            dir=out.parent, prefix=".xlbridge-", suffix=out.suffix + ".tmp"
-        )
-    except OSError as exc:
-        raise BookError(
-            f"cannot write in {out.parent}: {exc.strerror or exc} (is the folder read-only?)"
-        ) from None
-    os.close(fd)
-    tmp = Path(tmp_name)
+    remove_stale_temps(out.parent)
+    tmp = _new_temp(out)
     try:
         write(tmp)
-        with open(tmp, "rb") as fh:
+        with open(tmp, "r+b") as fh:  # write access: Windows flushes only a writable handle
             os.fsync(fh.fileno())
-        os.replace(tmp, out)
+        if mode_from is not None:
+            # The input's permission bits, but always readable and writable by the owner: a
+            # copy of a read-only original is a result its user may later replace (--force).
+            bits = stat.S_IMODE(os.stat(mode_from).st_mode) & 0o777
+            os.chmod(tmp, bits | stat.S_IRUSR | stat.S_IWUSR)
+        publish(tmp, out, force=force)
     except PermissionError:
         raise BookError(
             f"cannot replace {out}: permission denied (is it open in another program, "
