@@ -162,6 +162,17 @@ def test_dangling_link_counts_as_existing(tmp_path: Path) -> None:
     assert not out.is_symlink() and out.read_text() == "ours" and not target.exists()
 
 
+@posix_only
+def test_force_replaces_a_link_not_the_file_it_points_to(tmp_path: Path) -> None:
+    target, out = tmp_path / "keep.csv", tmp_path / "result.csv"
+    target.write_text("keep")
+    out.symlink_to(target)
+    with pytest.raises(BookError, match="already exists; add --force"):
+        write_atomically(out, _text("ours"), force=False)
+    write_atomically(out, _text("ours"), force=True)
+    assert not out.is_symlink() and out.read_text() == "ours" and target.read_text() == "keep"
+
+
 # --- no hard links: the reservation path cleans up after itself -----------------------------------
 
 
