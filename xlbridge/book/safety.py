@@ -1,4 +1,4 @@
-"""Guards around workbook files: hostile archives, atomic output, formula-looking text.
+"""Guards around workbook files: hostile archives, safe output, formula-looking text.
 
 Nothing here imports openpyxl at import time: the checks run before any parser sees the
 file, and :func:`safe_openpyxl` imports it only so that it parses XML with defusedxml.
@@ -6,11 +6,16 @@ file, and :func:`safe_openpyxl` imports it only so that it parses XML with defus
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import os
+import re
+import secrets
+import socket
 import stat
-import tempfile
+import time
 import zipfile
+import zlib
 from collections.abc import Callable, Iterable
 from pathlib import Path
 from typing import Any
@@ -19,10 +24,14 @@ __all__ = [
     "MAX_ENTRIES",
     "MAX_ENTRY_RATIO",
     "MAX_UNZIPPED_BYTES",
+    "STALE_TEMP_SECONDS",
+    "TEMP_PREFIX",
     "BookError",
     "check_archive",
     "check_output",
     "formula_safe_text",
+    "publish",
+    "remove_stale_temps",
     "safe_openpyxl",
     "write_atomically",
 ]
@@ -53,12 +62,81 @@ def _size_text(n: int) -> str:
     raise AssertionError  # pragma: no cover
 
 
-def _xml_prolog_has_dtd(head: bytes) -> bool | None:
+#: Byte-order marks, longest first (the UTF-32 LE mark begins with the UTF-16 LE one).
+_BOMS = (
+    (b"\x00\x00\xfe\xff", "utf-32-be"),
+    (b"\xff\xfe\x00\x00", "utf-32-le"),
+    (b"\xef\xbb\xbf", "utf-8"),
+    (b"\xfe\xff", "utf-16-be"),
+    (b"\xff\xfe", "utf-16-le"),
+)
+#: Zero bytes around the first character betray UTF-16/UTF-32 written without a mark
+#: (True = a zero byte); the UTF-32 patterns are tried first.
+_WIDE_PATTERNS = (
+    ((True, True, True, False), "utf-32-be"),
+    ((False, True, True, True), "utf-32-le"),
+    ((True, False), "utf-16-be"),
+    ((False, True), "utf-16-le"),
+)
+_EBCDIC_START = b"\x4c\x6f\xa7\x94"  # "<?xm" in EBCDIC, which some parsers read
+_WIDE_CODECS = frozenset({"utf-16", "utf-16-be", "utf-16-le", "utf-32", "utf-32-be",
+                          "utf-32-le"})
+#: An XML declaration naming its encoding, matched in ASCII only (so that its length in
+#: characters is its length in bytes in every 8-bit reading).
+_DECL_CHAR = r"[\t\n\r\x20-\x3d\x40-\x7e]"  # printable ASCII except > and ?
+_DECLARATION = re.compile(
+    rf"""\A[\t\n\r ]*<\?xml[\t\n\r ]{_DECL_CHAR}*?\bencoding[\t\n\r ]*=[\t\n\r ]*"""
+    rf"""(["'])([A-Za-z][A-Za-z0-9._-]{{0,39}})\1{_DECL_CHAR}*\?>""")
+
+
+class _UnknownEncoding(Exception):
+    """A part declares a character encoding that cannot be decoded here."""
+
+
+def _decoded(data: bytes, codec: str) -> str:
+    try:
+        return data.decode(codec, errors="replace")
+    except (LookupError, UnicodeError, ValueError) as exc:
+        raise _UnknownEncoding(codec) from exc
+
+
+def _xml_readings(head: bytes) -> list[str]:
+    """The start of an XML part as each parser may read it.
+
+    A byte-order mark decides; without one, the zero bytes around the first character show
+    UTF-16 or UTF-32; otherwise the part is 8-bit (UTF-8, or EBCDIC by its first bytes) and
+    the encoding named in the XML declaration applies after the declaration, so that reading
+    is checked as well. Raises _UnknownEncoding for a declared encoding Python cannot decode.
+    """
+    bom, codec = next(((b, c) for b, c in _BOMS if head.startswith(b)), (b"", "utf-8"))
+    start = len(bom)
+    if not bom:
+        zeros = tuple(b == 0 for b in head[:4])
+        for pattern, wide in _WIDE_PATTERNS:
+            if zeros[: len(pattern)] == pattern:
+                codec = wide
+                break
+        else:
+            if head.startswith(_EBCDIC_START):
+                codec = "cp037"
+    text = _decoded(head[start:], codec)
+    if codec in _WIDE_CODECS:
+        return [text]  # the width is fixed by now; a declaration cannot change it
+    m = _DECLARATION.match(text)
+    if m is None:
+        return [text]
+    try:
+        declared = codecs.lookup(m.group(2)).name
+    except LookupError:
+        raise _UnknownEncoding(m.group(2)) from None
+    if declared in (codec, *_WIDE_CODECS):
+        return [text]  # parsers keep reading 8-bit text when the declaration says UTF-16
+    # The declaration is single-byte text here, so its length in characters is in bytes too.
+    return [text, text[: m.end()] + _decoded(head[start + m.end():], declared)]
+
+
+def _scan_prolog(text: str, complete: bool) -> bool | None:
     """True if a DOCTYPE comes before the root element, False if not, None if unclear."""
-    if head.startswith((b"\xff\xfe", b"\xfe\xff")):
-        text = head.decode("utf-16", errors="replace")
-    else:
-        text = head.decode("utf-8", errors="replace").lstrip("\ufeff")
     i, n = 0, len(text)
     while i < n:
         if text[i].isspace():
@@ -80,7 +158,15 @@ def _xml_prolog_has_dtd(head: bytes) -> bool | None:
             return False
         else:
             return False  # not XML (binary part); its parser is not an XML one
-    return None if len(head) >= _PROLOG_LIMIT else False
+    return False if complete else None
+
+
+def _xml_prolog_has_dtd(head: bytes) -> bool | None:
+    """True if any reading of the part has a DTD before its root element, None if unclear."""
+    verdicts = [_scan_prolog(t, len(head) < _PROLOG_LIMIT) for t in _xml_readings(head)]
+    if any(verdicts):
+        return True
+    return None if None in verdicts else False
 
 
 def check_archive(path: Path) -> None:
@@ -154,7 +240,14 @@ def check_archive(path: Path) -> None:
                     head = part.read(_PROLOG_LIMIT)
             except (zipfile.BadZipFile, OSError, NotImplementedError, RuntimeError) as exc:
                 raise BookError(f"{name}: part {info.filename} cannot be read: {exc}") from None
-            verdict = _xml_prolog_has_dtd(head)
+            try:
+                verdict = _xml_prolog_has_dtd(head)
+            except _UnknownEncoding as exc:
+                raise BookError(
+                    f"{name}: part {info.filename} is in the character encoding "
+                    f"{str(exc)!r}, which cannot be checked for entity declarations; refused. "
+                    "Open the workbook in a spreadsheet program and save it again"
+                ) from None
             if verdict is None or verdict:
                 raise BookError(
                     f"{name}: part {info.filename} declares a DTD or entities (an XML attack "
@@ -176,7 +269,11 @@ def _lock_file(path: Path) -> Path:
 
 
 def check_output(out: Path, *, force: bool, inputs: Iterable[Path] = ()) -> None:
-    """Refuse an output that is an input, exists without --force, is read-only or open."""
+    """Refuse an output that is an input, exists without --force, is read-only or open.
+
+    Anything at ``out`` counts as existing, a symbolic link to a missing file included.
+    This is the early, friendly check; ``publish`` enforces the rule again at the last step.
+    """
     for src in inputs:
         try:
             same = out.exists() and os.path.samefile(out, src)
@@ -196,38 +293,198 @@ def check_output(out: Path, *, force: bool, inputs: Iterable[Path] = ()) -> None
             f"{out.name} is open in another program (lock file {_lock_file(out).name} "
             "found); close it there, or write to another file"
         )
-    if out.exists():
-        if not force:
-            raise BookError(f"{out} already exists; add --force to replace it")
-        mode = out.stat().st_mode
-        if not (mode & stat.S_IWUSR) or not os.access(out, os.W_OK):
-            raise BookError(f"{out} is read-only; make it writable or write to another file")
+    if not os.path.lexists(out):
+        return
+    dangling = not out.exists()
+    if not force:
+        if dangling:
+            raise BookError(f"{out} already exists as a link to a missing file; add --force "
+                            "to replace the link, or write to another file")
+        raise BookError(f"{out} already exists; add --force to replace it")
+    if dangling:
+        return  # --force replaces the link itself; there is no file to be read-only
+    mode = out.stat().st_mode
+    if not (mode & stat.S_IWUSR) or not os.access(out, os.W_OK):
+        raise BookError(f"{out} is read-only; make it writable or write to another file")
+
+
+# --- temporary files -----------------------------------------------------------------------------
+
+#: Every temporary file we write starts with this, followed by
+#: ``<host tag>-<pid>-<random>-<output name>``, so a later run can tell ours from anything else.
+TEMP_PREFIX = ".xlbridge-tmp-"
+#: A temporary file of ours untouched for this long is left over from a run that died: a save
+#: writes continuously and takes seconds to minutes, never an hour without a write.
+STALE_TEMP_SECONDS = 3600
+_TEMP_NAME = re.compile(re.escape(TEMP_PREFIX) + r"([0-9a-f]{6})-([1-9][0-9]{0,9})-[0-9a-f]{8}-")
+_NAME_BYTES = 100  # of the output name kept in a temporary name (file names max. 255 bytes)
+
+
+def _host_tag() -> str:
+    # Process ids mean something only on the machine that issued them; the tag tells whether
+    # a temporary file in a shared folder was written here.
+    return f"{zlib.crc32(socket.gethostname().encode('utf-8', 'replace')) & 0xFFFFFF:06x}"
+
+
+def _short_name(name: str) -> str:
+    suffix = Path(name).suffix[:16]
+    stem = name[: len(name) - len(suffix)] if suffix else name
+    while stem and len(os.fsencode(stem + suffix)) > _NAME_BYTES:
+        stem = stem[:-1]
+    return stem + suffix
+
+
+def _pid_running(pid: int) -> bool:
+    if os.name != "posix":
+        return True  # os.kill(pid, 0) would end the process on Windows; the age rule applies
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # running, under another user
+    except (OverflowError, OSError):
+        return False  # not a process id this system can have
+    return True
+
+
+def remove_stale_temps(folder: Path, *, now: float | None = None) -> list[Path]:
+    """Remove our temporary files in ``folder`` left by runs that died; returns them.
+
+    A temporary file is stale when the process that wrote it, on this machine, is no longer
+    running, or when it has not been written to for STALE_TEMP_SECONDS (a run on another
+    machine sharing the folder, or a process id reused since). Files not named by us, links
+    and folders are never touched; a file that cannot be removed is left in peace.
+    """
+    now = time.time() if now is None else now
+    here = _host_tag()
+    removed = []
+    try:
+        entries = list(os.scandir(folder))
+    except OSError:
+        return removed
+    for entry in entries:
+        m = _TEMP_NAME.match(entry.name)
+        if m is None:
+            continue
+        try:
+            st = entry.stat(follow_symlinks=False)
+        except OSError:
+            continue
+        if not stat.S_ISREG(st.st_mode):
+            continue
+        dead = m.group(1) == here and not _pid_running(int(m.group(2)))
+        if dead or now - st.st_mtime > STALE_TEMP_SECONDS:
+            with contextlib.suppress(OSError):
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+    return removed
+
+
+def _new_temp(out: Path) -> Path:
+    """Create an empty temporary file beside ``out``, with the mode the umask gives."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+    stem = f"{TEMP_PREFIX}{_host_tag()}-{os.getpid()}-"
+    for _ in range(100):
+        tmp = out.with_name(f"{stem}{secrets.token_hex(4)}-{_short_name(out.name)}")
+        try:
+            fd = os.open(tmp, flags, 0o666)
+        except FileExistsError:
+            continue
+        except OSError as exc:
+            raise BookError(f"cannot write in {out.parent}: {exc.strerror or exc} (is the "
+                            "folder read-only?)") from None
+        os.close(fd)
+        return tmp
+    raise BookError(f"cannot create a temporary file in {out.parent}")  # pragma: no cover
+
+
+# --- publishing ----------------------------------------------------------------------------------
+
+
+def _appeared(out: Path) -> BookError:
+    return BookError(
+        f"{out} appeared while this run was writing it (another program or run created it); "
+        "it was not replaced. Add --force to replace it, or write to another file"
+    )
+
+
+def publish(tmp: Path, out: Path, *, force: bool) -> None:
+    """Put the finished file ``tmp`` at ``out`` in one step; ``tmp`` is gone afterwards.
+
+    With ``force`` an existing ``out`` is replaced atomically. Without it nothing at ``out``
+    (a file, a folder, a link, even one to a missing file) is ever replaced: the step that
+    creates the name fails if the name is taken, so there is no moment between a check and
+    the rename in which another file could appear and be lost. Raises BookError then.
+    """
+    if force:
+        os.replace(tmp, out)
+        return
+    # A hard link is created only if the name is free (lstat semantics), atomically.
+    try:
+        os.link(tmp, out)
+    except FileExistsError:
+        raise _appeared(out) from None
+    except OSError:
+        _publish_by_reservation(tmp, out)  # no hard links here (FAT, exFAT, some shares)
+    else:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+
+
+def _publish_by_reservation(tmp: Path, out: Path) -> None:
+    # Where hard links are unsupported, the name is reserved by creating it exclusively
+    # (O_EXCL also fails on a link to a missing file) and the finished file is renamed over
+    # that empty placeholder of ours. Another no-clobber writer cannot take the name; what the
+    # rename can replace is only our placeholder, or what a program that overwrites without
+    # looking wrote into it in the instant between the two calls. This is portable, unlike a
+    # no-replace rename (renameat2 or renamex_np through ctypes, filesystem permitting).
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+    try:
+        fd = os.open(out, flags, 0o600)
+    except FileExistsError:
+        raise _appeared(out) from None
+    try:
+        mine = os.fstat(fd)
+    finally:
+        os.close(fd)
+    try:
+        os.replace(tmp, out)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            now = os.lstat(out)
+            if (now.st_dev, now.st_ino) == (mine.st_dev, mine.st_ino):
+                os.unlink(out)  # our placeholder, never anyone else's file
+        raise
 
 
 def write_atomically(
-    out: Path, write: Callable[[Path], None], *, force: bool, inputs: Iterable[Path] = ()
+    out: Path, write: Callable[[Path], None], *, force: bool, inputs: Iterable[Path] = (),
+    mode_from: Path | None = None,
 ) -> None:
-    """Write to a temporary file beside ``out`` with ``write(tmp)``, then rename it into place.
+    """Write ``out`` through a temporary file beside it: ``write(tmp)`` fills it, ``publish``
+    puts it in place.
 
-    A failure at any point leaves ``out`` as it was (absent or the old file).
+    Without ``force`` no existing path is replaced, even one that appears during the write.
+    A failure at any point leaves ``out`` as it was and no temporary file. The new file gets
+    the mode the umask gives, or the permission bits of ``mode_from`` (a copy of an input)
+    plus read and write for the owner.
+    Stale temporary files of earlier runs in the folder are removed first.
     """
     inputs = list(inputs)
     check_output(out, force=force, inputs=inputs)
-    try:
-        fd, tmp_name = tempfile.mkstemp(
-            dir=out.parent, prefix=".xlbridge-", suffix=out.suffix + ".tmp"
-        )
-    except OSError as exc:
-        raise BookError(
-            f"cannot write in {out.parent}: {exc.strerror or exc} (is the folder read-only?)"
-        ) from None
-    os.close(fd)
-    tmp = Path(tmp_name)
+    remove_stale_temps(out.parent)
+    tmp = _new_temp(out)
     try:
         write(tmp)
-        with open(tmp, "rb") as fh:
+        with open(tmp, "r+b") as fh:  # write access: Windows flushes only a writable handle
             os.fsync(fh.fileno())
-        os.replace(tmp, out)
+        if mode_from is not None:
+            # The input's permission bits, but always readable and writable by the owner: a
+            # copy of a read-only original is a result its user may later replace (--force).
+            bits = stat.S_IMODE(os.stat(mode_from).st_mode) & 0o777
+            os.chmod(tmp, bits | stat.S_IRUSR | stat.S_IWUSR)
+        publish(tmp, out, force=force)
     except PermissionError:
         raise BookError(
             f"cannot replace {out}: permission denied (is it open in another program, "

@@ -167,11 +167,14 @@ def add_result_sheet(wb: Any, title: str, blocks: Sequence[tuple[str, Sequence[S
 
 
 def save_copy(wb: Any, out: Path, *, force: bool, inputs: Iterable[Path]) -> None:
-    """Save atomically (temporary file, then rename); never over an input."""
+    """Save atomically (temporary file, then rename); never over an input. The copy gets
+    the permission bits of the first input, the workbook it copies."""
     def write(tmp: Path) -> None:
         wb.save(tmp)
 
-    write_atomically(out, write, force=force, inputs=inputs)
+    inputs = list(inputs)
+    write_atomically(out, write, force=force, inputs=inputs,
+                     mode_from=inputs[0] if inputs else None)
     # Cheap self-check: the copy must be a readable archive.
     try:
         with zipfile.ZipFile(out) as zf:
