@@ -57,7 +57,7 @@ class Scenario:
     model: object
     options: str
     inputs_caption: str
-    inputs: list[list[float]]  # points for XB_PREDICT / XB_SLOPE (columns = x_cols)
+    inputs: list[list[float]]  # points for XB_PREDICT / XB_MARGINAL (columns = x_cols)
     blocks: list[Block] = field(default_factory=list)
     how_to: list[str] = field(default_factory=list)
 
@@ -89,14 +89,14 @@ def equipment_cost() -> Scenario:
         inputs=[[25.0], [75.0], [150.0], [250.0], [380.0], [450.0]],
         how_to=[
             "Data: one row per completed job; capacity in kW, installed cost in k$.",
-            "Model!B4 holds the degree. XB_DEGREES scans degrees 1 to 5 and marks the "
+            "Model!B4 holds the degree. XB_DEGREESCAN scans degrees 1 to 5 and marks the "
             "recommended one (lowest cross-validated error within one standard error of the "
             "best); set B4 to it.",
             "Model!B5 holds options, e.g. 'log=yes' or 'error=percent' when the checks show "
             "spread growing with size, 'se=hc3' for robust standard errors, 'level=0.9'.",
             "Type new capacities in the 'Capacities to estimate' column: XB_PREDICT gives the "
             "estimate with its confidence interval (mean) and prediction interval (one new "
-            "job), and flags extrapolation; XB_SLOPE gives the added cost of one more kW.",
+            "job), and flags extrapolation; XB_MARGINAL gives the added cost of one more kW.",
         ],
     )
 
@@ -129,7 +129,7 @@ def margin_surface() -> Scenario:
             "interval, says whether it is a maximum, minimum, saddle or ridge, and whether it "
             "lies inside the data.",
             "Type price/rebate combinations in the input block: XB_PREDICT gives the margin "
-            "with intervals; XB_SLOPE the change in margin per $ of price and per point of "
+            "with intervals; XB_MARGINAL the change in margin per $ of price and per point of "
             "rebate.",
         ],
     )
@@ -191,7 +191,7 @@ def build(sc: Scenario):
                    "xlbridge; refresh headlessly with: xlbridge recalc BOOK --out COPY")
     model["A4"], model["B4"] = "model", sc.model
     model["A5"], model["B5"] = "options", sc.options or None
-    model["C4"] = ("degree chosen from XB_DEGREES (recommended row)"
+    model["C4"] = ("degree chosen from XB_DEGREESCAN (recommended row)"
                    if isinstance(sc.model, int) else "complete second-order surface")
     model["C5"] = "key=value; ... e.g. log=yes; se=hc3; error=percent; level=0.9"
     for c in ("A4", "A5"):
@@ -218,8 +218,8 @@ def build(sc: Scenario):
     m = sc.model
     opts = sc.options or None
     if isinstance(m, int):
-        row = put("Degree scan", f"XB_DEGREES({y_ref},{x_ref},5,$B$5)",
-                  ws.XB_DEGREES(y_vals, x_vals, 5.0, opts))
+        row = put("Degree scan", f"XB_DEGREESCAN({y_ref},{x_ref},5,$B$5)",
+                  ws.XB_DEGREESCAN(y_vals, x_vals, 5.0, opts))
     row = put("Coefficients", f"XB_COEFS({args})", ws.XB_COEFS(y_vals, x_vals, m, opts))
     row = put("Fit statistics", f"XB_STATS({args})", ws.XB_STATS(y_vals, x_vals, m, opts))
     row = put("Equation (raw units, full precision)", f"XB_EQUATION({args})",
@@ -245,21 +245,21 @@ def build(sc: Scenario):
         f"=XB_PREDICT({y_ref},{x_ref},$B$4,{in_ref},$B$5)")
     scol = pcol + w + 1
     model.cell(row=row, column=scol, value="Slopes").font = Font(bold=True)
-    slope = ws.XB_SLOPE(y_vals, x_vals, m, in_vals, opts)
+    slope = ws.XB_MARGINAL(y_vals, x_vals, m, in_vals, opts)
     h2, w2 = _shape(slope)
     model.cell(row=top, column=scol).value = ArrayFormula(
         f"{_col(scol)}{top}:{_col(scol + w2 - 1)}{top + h2 - 1}",
-        f"=XB_SLOPE({y_ref},{x_ref},$B$4,{in_ref},$B$5)")
+        f"=XB_MARGINAL({y_ref},{x_ref},$B$4,{in_ref},$B$5)")
     row = top + max(h, h2) + 1
-    row = put("Versions (audit trail)", "XB_INFO()", ws.XB_INFO())
+    row = put("Versions (audit trail)", "XB_VERSIONS()", ws.XB_VERSIONS())
     model.column_dimensions["A"].width = 34
 
     diag = wb.create_sheet("Diagnostics")
     diag["A1"] = "Row diagnostics, aligned with the rows of the Data sheet"
-    rows_v = ws.XB_ROWS(y_vals, x_vals, m, opts)
+    rows_v = ws.XB_ROWDIAG(y_vals, x_vals, m, opts)
     h, w = _shape(rows_v)
     diag["A2"] = ArrayFormula(f"A2:{_col(w)}{h + 1}",
-                              f"=XB_ROWS({y_ref},{x_ref},Model!$B$4,Model!$B$5)")
+                              f"=XB_ROWDIAG({y_ref},{x_ref},Model!$B$4,Model!$B$5)")
 
     conf = wb.create_sheet("xlwings.conf")
     conf["A1"], conf["B1"] = "UDF Modules", "xlbridge.worksheet"

@@ -1,4 +1,4 @@
-"""XB_DEGREES, XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE: the worksheet functions give the
+"""XB_DEGREESCAN, XB_CHECKS, XB_ROWDIAG, XB_OPTIMUM, XB_MARGINAL: the worksheet functions give the
 same numbers as the Python API (itself checked against statsmodels/scipy in
 test_diagnostics.py), line up with input rows, and answer bad input with a message."""
 
@@ -35,7 +35,7 @@ def _table(t):
 def test_degrees_match_api():
     x, y = _data()
     Y, X = _cells(x, y)
-    rows = _table(ws.XB_DEGREES(Y, X, 4.0, "folds=5"))
+    rows = _table(ws.XB_DEGREESCAN(Y, X, 4.0, "folds=5"))
     scan = scan_degrees(y, x, 4, folds=5)
     assert [r["degree"] for r in rows] == [1.0, 2.0, 3.0, 4.0]
     for r, s in zip(rows, scan.rows):
@@ -59,7 +59,7 @@ def test_checks_and_rows_match_api_and_align_with_input():
         assert r["verdict"] == c.verdict
         if math.isfinite(c.statistic):
             assert r["statistic"] == pytest.approx(c.statistic, rel=1e-12)
-    rows = ws.XB_ROWS(Y, X, 2.0)
+    rows = ws.XB_ROWDIAG(Y, X, 2.0)
     assert len(rows) == len(Y)  # header + one row per data row
     assert rows[4][-1] == "dropped: error value" and rows[9][-1] == "dropped: text"
     d = row_diagnostics(res)
@@ -79,7 +79,7 @@ def test_optimum_and_slope_match_api():
     pt = optimum(fit(y, x, 2)).points[0]
     assert items["kind"][1] == pt.kind and items["size"][1] == pt.x[0]
     assert items["size"][2] == pt.se[0]
-    s = ws.XB_SLOPE(Y, X, 2.0, [["size"], [50.0], ["n/a"], [150.0]])
+    s = ws.XB_MARGINAL(Y, X, 2.0, [["size"], [50.0], ["n/a"], [150.0]])
     api = slopes(fit(y, x, 2), [50.0, 150.0])
     assert s[0] == ["slope", "std_error", "ci_lower", "ci_upper", "range_flag"]
     assert s[1][0] == api.slope[0, 0] and s[3][1] == api.se[1, 0]
@@ -99,11 +99,11 @@ def test_surface_optimum_table_has_eigen_rows():
 
 
 @pytest.mark.parametrize("call, message", [
-    (lambda Y, X: ws.XB_DEGREES(Y, X, 2.5), "max_degree must be a whole number"),
-    (lambda Y, X: ws.XB_DEGREES(Y, X, 3.0, "folds=1"), "folds"),
+    (lambda Y, X: ws.XB_DEGREESCAN(Y, X, 2.5), "max_degree must be a whole number"),
+    (lambda Y, X: ws.XB_DEGREESCAN(Y, X, 3.0, "folds=1"), "folds"),
     (lambda Y, X: ws.XB_OPTIMUM(Y, X, 1.0), "straight line has no stationary point"),
     (lambda Y, X: ws.XB_CHECKS(Y, X, 2.0, "se=hc9"), "hc3"),
-    (lambda Y, X: ws.XB_SLOPE(Y, X, 2.0, [[1.0, 2.0], [3.0, 4.0]]), "at_x has 2 columns"),
+    (lambda Y, X: ws.XB_MARGINAL(Y, X, 2.0, [[1.0, 2.0], [3.0, 4.0]]), "at_x has 2 columns"),
 ])
 def test_bad_input_gives_a_message(call, message):
     x, y = _data()
@@ -119,11 +119,11 @@ _cell = st.one_of(st.none(), st.floats(allow_nan=True, allow_infinity=True), st.
 
 @settings(max_examples=40, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.tuples(_cell, _cell), min_size=0, max_size=25),
-       st.sampled_from(["XB_DEGREES", "XB_CHECKS", "XB_ROWS", "XB_OPTIMUM"]))
+       st.sampled_from(["XB_DEGREESCAN", "XB_CHECKS", "XB_ROWDIAG", "XB_OPTIMUM"]))
 def test_any_cells_give_a_table_or_a_message(pairs, name):
     Y = [[p[0]] for p in pairs]
     X = [[p[1]] for p in pairs]
-    arg = 3.0 if name == "XB_DEGREES" else 2.0
+    arg = 3.0 if name == "XB_DEGREESCAN" else 2.0
     t = ws.FUNCTIONS[name](Y, X, arg)
     assert isinstance(t, list) and t and all(isinstance(r, list) for r in t)
     width = len(t[0])

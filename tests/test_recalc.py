@@ -73,7 +73,7 @@ def test_reader_reads_the_argument_kinds() -> None:
     assert c.args[2:] == (Literal(2.0), ArrayConst(((1.0, 2.0), (3.0, 4.0))), Missing(),
                           Literal(True), Literal('a "q" b'), Literal(-0.0015), Literal(0.5),
                           Literal("#N/A"))
-    assert parse_xb_formula("=xb_info()") == Call("XB_INFO", ())
+    assert parse_xb_formula("=xb_versions()") == Call("XB_VERSIONS", ())
     assert parse_xb_formula("=_xludf.XB_STATS(y,x,1)").name == "XB_STATS"
     assert parse_xb_formula("='xlbridge.xlam'!XB_STATS(y,x,1)").name == "XB_STATS"
     assert parse_xb_formula("=_xlfn.SINGLE(XB_EQUATION(y,x,1))").single

@@ -180,15 +180,15 @@ def test_a_blank_new_x_cell_gives_an_aligned_blank_row():
 
 
 def test_info_needs_no_arguments_and_names_our_version():
-    t = ws.XB_INFO()
+    t = ws.XB_VERSIONS()
     assert t[0] == ["component", "version"]
     assert dict(t[1:])["xlbridge"] == xlbridge.__version__
 
 
 def test_functions_carry_help_text_and_category():
     assert set(ws.FUNCTIONS) == {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION",
-                                 "XB_DEGREES", "XB_CHECKS", "XB_ROWS", "XB_OPTIMUM",
-                                 "XB_SLOPE", "XB_PLOT", "XB_GROUPS", "XB_INFO"}
+                                 "XB_DEGREESCAN", "XB_CHECKS", "XB_ROWDIAG", "XB_OPTIMUM",
+                                 "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"}
     for name, f in ws.FUNCTIONS.items():
         assert f.__doc__ and len(f.__doc__) <= 255 and "\n" not in f.__doc__, name
         if ws.DECORATORS == "shim":

@@ -34,14 +34,14 @@ EXPECTED_ARGS = {
     "XB_STATS": ["y", "x", "model", "options"],
     "XB_PREDICT": ["y", "x", "model", "new_x", "options"],
     "XB_EQUATION": ["y", "x", "model", "options"],
-    "XB_DEGREES": ["y", "x", "max_degree", "options"],
+    "XB_DEGREESCAN": ["y", "x", "max_degree", "options"],
     "XB_CHECKS": ["y", "x", "model", "options"],
-    "XB_ROWS": ["y", "x", "model", "options"],
+    "XB_ROWDIAG": ["y", "x", "model", "options"],
     "XB_OPTIMUM": ["y", "x", "model", "options"],
-    "XB_SLOPE": ["y", "x", "model", "at_x", "options"],
+    "XB_MARGINAL": ["y", "x", "model", "at_x", "options"],
     "XB_PLOT": ["y", "x", "model", "kind", "options"],  # caller is filled in by xlwings
     "XB_GROUPS": ["group", "y", "x", "model", "options"],
-    "XB_INFO": [],
+    "XB_VERSIONS": [],
 }
 
 
@@ -77,7 +77,7 @@ CASES = [
     {"id": "predict", "function": "XB_PREDICT",
      "args": [Y, X, 2.0, [[20.0], [None], [NA], [90.0]], "Header = No"]},
     {"id": "equation", "function": "XB_EQUATION", "args": [Y, X, 2.0, MISSING]},
-    {"id": "info", "function": "XB_INFO", "args": []},
+    {"id": "info", "function": "XB_VERSIONS", "args": []},
     {"id": "mismatch", "function": "XB_COEFS", "args": [Y, X[:-1], 2.0, MISSING]},
     {"id": "bad_options", "function": "XB_STATS", "args": [Y, X, 2.0, "confidence=0.9"]},
     {"id": "error_model", "function": "XB_COEFS", "args": [Y, X, NA, MISSING]},

@@ -68,15 +68,15 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
         book = open_book(template)
         wb = writer.load_for_copy(template)
         captured: dict = {}
-        functions = _capturing(worksheet.FUNCTIONS, ("XB_COEFS", "XB_DEGREES"), captured)
+        functions = _capturing(worksheet.FUNCTIONS, ("XB_COEFS", "XB_DEGREESCAN"), captured)
         evaluation = evaluate_book(book, wb, functions=functions)
         write_results(evaluation, wb)
         calculated = out / f"{stem}-calculated.xlsx"
         writer.save_copy(wb, calculated, force=True, inputs=[template])
         res, _ = cells.fit_cells(*captured["XB_COEFS"])
         scan = None
-        if "XB_DEGREES" in captured:
-            scan, _ = model_cells.scan_cells(*captured["XB_DEGREES"])
+        if "XB_DEGREESCAN" in captured:
+            scan, _ = model_cells.scan_cells(*captured["XB_DEGREESCAN"])
         figures = write_figures(res, out / "figures", scan=scan, prefix=f"{stem}-",
                                 force=True)
         report = out / f"{stem}-report.html"

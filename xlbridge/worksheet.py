@@ -26,8 +26,8 @@ from typing import Any, TypeVar
 from . import cells
 from .cells import Table, run_guarded
 
-__all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREES", "XB_CHECKS",
-           "XB_ROWS", "XB_OPTIMUM", "XB_SLOPE", "XB_PLOT", "XB_GROUPS", "XB_INFO",
+__all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREESCAN", "XB_CHECKS",
+           "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS",
            "FUNCTIONS", "CATEGORY", "DECORATORS"]
 
 CATEGORY = "xlbridge"
@@ -135,7 +135,7 @@ def XB_EQUATION(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("x", doc=_X, err_to_str=True)
 @xw.arg("max_degree", doc="Highest polynomial degree to try, 1-10.", err_to_str=True)
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
-def XB_DEGREES(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
+def XB_DEGREESCAN(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
     """Degree scan 1..max_degree: r2, adj_r2, rmse, aic, aicc, bic, press, pred_r2, cross-validated rmse, tests, and the recommended degree (one-standard-error rule)."""  # noqa: E501
     return run_guarded(cells.degrees_cells, y, x, max_degree, options)
 
@@ -155,7 +155,7 @@ def XB_CHECKS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("x", doc=_X, err_to_str=True)
 @xw.arg("model", doc=_MODEL, err_to_str=True)
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
-def XB_ROWS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+def XB_ROWDIAG(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Per input row: fitted, residual, standardized and studentized residuals, leverage, Cook's distance and a flag; rows line up with y and x."""  # noqa: E501
     return run_guarded(cells.rows_cells, y, x, model, options)
 
@@ -177,7 +177,7 @@ def XB_OPTIMUM(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 @xw.arg("at_x", doc="Points to take the slope at: one row per point, one column per "
         "predictor. Result rows line up with these rows.", err_to_str=True)
 @xw.arg("options", doc=_OPTIONS, err_to_str=True)
-def XB_SLOPE(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
+def XB_MARGINAL(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
     """Marginal effect dy/dx of each predictor at the given points, e.g. the added price of one more unit of size, with delta-method standard error and interval."""  # noqa: E501
     return run_guarded(cells.slope_cells, y, x, model, at_x, options)
 
@@ -228,13 +228,13 @@ def XB_GROUPS(group: Any, y: Any, x: Any, model: Any, options: Any = None) -> Ta
 
 
 @xw.func(category=CATEGORY)
-def XB_INFO() -> Table:
+def XB_VERSIONS() -> Table:
     """Versions of xlbridge, Python and its numerical libraries, for audit trails."""
     return run_guarded(cells.info_cells)
 
 
 FUNCTIONS: dict[str, Callable[..., Table]] = {
-    f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_DEGREES,
-                            XB_CHECKS, XB_ROWS, XB_OPTIMUM, XB_SLOPE, XB_PLOT, XB_GROUPS,
-                            XB_INFO)
+    f.__name__: f for f in (XB_COEFS, XB_STATS, XB_PREDICT, XB_EQUATION, XB_DEGREESCAN,
+                            XB_CHECKS, XB_ROWDIAG, XB_OPTIMUM, XB_MARGINAL, XB_PLOT, XB_GROUPS,
+                            XB_VERSIONS)
 }

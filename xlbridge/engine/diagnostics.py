@@ -11,7 +11,7 @@ Thresholds (documented, and named in each check's note):
   ``watch`` (interpret the centered form) (VIF 10: common practice);
 - extrapolation risk: largest leverage > 0.5 is ``watch``, > 0.9 ``problem``;
 - rows per coefficient: >= 10 ``ok``, 5 to 10 ``watch``, < 5 ``problem`` (common practice).
-Rows flagged in XB_ROWS: outlier (Bonferroni p < 0.05), high leverage (h > 2p/n, common
+Rows flagged in XB_ROWDIAG: outlier (Bonferroni p < 0.05), high leverage (h > 2p/n, common
 practice), influential (Cook's D > 4/n).
 """
 

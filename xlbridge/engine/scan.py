@@ -99,7 +99,7 @@ def scan_degrees(
     ``folds``: None for the default (10, or leave-one-out up to 20 rows), 0 for
     leave-one-out, or a number of folds from 2 to the number of rows."""
     if isinstance(max_degree, bool) or not float(max_degree).is_integer():
-        raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}",
+        raise ModelError(f"max_degree must be a whole number 1 to {MAX_DEGREE}; got {max_degree!r}",
                          ModelErrorKind.SPEC)
     max_degree = int(max_degree)
     if not 1 <= max_degree <= MAX_DEGREE:

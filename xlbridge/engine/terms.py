@@ -130,7 +130,9 @@ def parse_model(
     if len({n.lower() for n in names}) != k:
         raise ModelError(f"predictor names must differ: {', '.join(names)}", ModelErrorKind.SPEC)
     if isinstance(model, float) and not model.is_integer():
-        raise ModelError(f"model {model!r} is not a whole-number degree", ModelErrorKind.SPEC)
+        raise ModelError(
+            f"model {model!r} is not a whole-number degree; give a degree 1-{MAX_DEGREE} (one x "
+            "column), 'surface', 'linear', 'interact' or a term list", ModelErrorKind.SPEC)
     degree = _as_degree(model)
     if degree is not None:
         if k != 1:
