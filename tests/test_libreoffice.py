@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import csv
 import math
+import os
 import re
 import shutil
 import subprocess
@@ -72,7 +73,9 @@ def convert_to_csv(book: Path, outdir: Path, profile: Path) -> dict[str, list[li
     outdir.mkdir()
     cmd = [SOFFICE, f"-env:UserInstallation={profile.as_uri()}", "--headless", "--norestore",
            "--convert-to", CSV_FILTER, "--outdir", str(outdir), str(book)]
-    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=SOFFICE_TIMEOUT)
+    # The locale decides the decimal separator and the words for TRUE/FALSE in the export.
+    env = {**os.environ, "LC_ALL": "C.UTF-8", "LANG": "C.UTF-8"}
+    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=SOFFICE_TIMEOUT, env=env)
     grids = {}
     for name in sheet_names(book):
         path = outdir / f"{book.stem}-{name}.csv"
