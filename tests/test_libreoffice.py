@@ -22,13 +22,14 @@ import re
 import shutil
 import subprocess
 from collections import Counter
+from collections.abc import Set
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import openpyxl
 import pytest
-from openpyxl.utils.cell import range_boundaries
+from openpyxl.utils.cell import get_column_letter, range_boundaries
 from openpyxl.worksheet.formula import ArrayFormula
 
 from tests.bookfactory import run_process
@@ -167,7 +168,7 @@ class Findings:
 
 
 def check_book(book: Path, original: Path, grids: dict[str, list[list[str]]],
-               xb_results: set[Cell] = frozenset()) -> Findings:
+               xb_results: Set[Cell] = frozenset()) -> Findings:
     """Compare LibreOffice's display of `book` with what the file stores.
 
     `original` is the template the book came from: its saved values say which errors were
@@ -183,7 +184,7 @@ def check_book(book: Path, original: Path, grids: dict[str, list[list[str]]],
                            for r, row in enumerate(rows) for k, t in enumerate(row) if t}
     for cell in sorted(cells):
         text, value = shown(grids, cell), stored.get(cell)
-        where = f"{book.name} {cell[0]}!{openpyxl.utils.get_column_letter(cell[2])}{cell[1]}"
+        where = f"{book.name} {cell[0]}!{get_column_letter(cell[2])}{cell[1]}"
         if cell in live_xb:
             found.xb_shown[text if LO_ERROR.match(text) else "a value"] += 1
             continue
