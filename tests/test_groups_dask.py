@@ -7,11 +7,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-pytest.importorskip("dask.dataframe", reason="dask not installed: pip install 'xlbridge[dask]'")
-distributed = pytest.importorskip("distributed",
-                                  reason="distributed not installed: pip install 'xlbridge[dask]'")
+pytest.importorskip("dask.dataframe", reason="dask not installed: pip install '.[dask]' (checkout)")
+distributed = pytest.importorskip(
+    "distributed", reason="distributed not installed: pip install '.[dask]' (checkout)")
 pd = pytest.importorskip("pandas")
-pytest.importorskip("pyarrow", reason="pyarrow not installed: pip install 'xlbridge[dask]'")
+pytest.importorskip("pyarrow", reason="pyarrow not installed: pip install '.[dask]' (checkout)")
 
 from xlbridge import ModelError, fit_groups  # noqa: E402
 from xlbridge.groups_dask import fit_groups_dask  # noqa: E402

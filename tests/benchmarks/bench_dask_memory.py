@@ -12,7 +12,7 @@ and ``distributed.p2p.storage.buffer``) are set to 64 and 32 MiB here, as one wo
 workers; the workers inherit them from this process.
 
 Run by hand:  python tests/benchmarks/bench_dask_memory.py [rows_per_partition]
-Needs the dask extra: pip install "xlbridge[dask]".
+Needs the dask extra: python -m pip install ".[dask]" from a checkout.
 """
 
 from __future__ import annotations
