@@ -1,4 +1,4 @@
-"""Grouped fits over datasets larger than memory, with Dask (optional extra ``xlbridge[dask]``).
+"""Grouped fits over datasets larger than memory, with Dask (optional extra ``dask``).
 
 The rows are shuffled so that every group lands whole in one partition; each partition is
 fitted by the same batch engine as ``fit_groups`` (``xlbridge.engine.groups``), one task per
@@ -22,8 +22,8 @@ from .engine.groups import finite_range, fit_groups, normalize_key
 
 __all__ = ["fit_groups_dask", "read_dataset"]
 
-_INSTALL = ("the dask engine needs Dask: pip install \"xlbridge[dask]\" "
-            "(dask[dataframe], distributed and pyarrow)")
+_INSTALL = ("the dask engine needs Dask: from the xlbridge checkout, "
+            "python -m pip install \".[dask]\" (dask[dataframe], distributed and pyarrow)")
 _CSV_SUFFIXES = (".csv", ".txt", ".tsv")
 
 

@@ -250,7 +250,7 @@ def _version(dist: str) -> str:
 def info_table(options: Options | None = None) -> Table:
     """Versions of xlbridge, Python and the numerical dependencies, for audit trails."""
     opts = options or Options()
-    own = getattr(sys.modules.get("xlbridge"), "__version__", None) or _version("xlbridge")
+    own = getattr(sys.modules.get("xlbridge"), "__version__", None) or _version("xlbridge-models")
     rows: list[list[Any]] = [["component", "version"]] if opts.header else []
     rows += [
         ["xlbridge", own],
