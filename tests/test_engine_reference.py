@@ -186,14 +186,16 @@ def test_equation_reproduces_fitted_values():
 def test_to_dict_keys():
     x, y = _cost_data()
     d = fit(y, x, 2).to_dict()
-    assert set(d) == {"model", "coefficients", "stats"}
+    assert set(d) == {"model", "coefficients", "stats", "unit_stats", "relevant_range"}
     assert set(d["model"]) == {"spec", "terms", "intercept", "n_used", "n_dropped"}
     assert set(d["coefficients"][0]) == {"term", "estimate", "std_error", "t_ratio", "p_value",
                                          "ci_lower", "ci_upper", "vif", "vif_centered"}
     assert set(d["stats"]) == {
         "n_used", "n_params", "df_resid", "sse", "sst", "r2", "adj_r2", "rmse", "cv_percent",
         "f_stat", "f_p_value", "aic", "bic", "press", "pred_r2", "cond_number", "max_vif",
-        "top_term_p_value"}
+        "top_term_p_value", "fit_space"}
+    assert set(d["unit_stats"]) == {"fit_space", "n", "n_params", "df", "see", "cv", "r2_unit",
+                                    "bias_percent", "spe"}
     import json
 
     json.dumps(d, allow_nan=False)

@@ -12,6 +12,7 @@ from .dist import t_quantile
 from .errors import ModelError, ModelErrorKind
 from .solve import Basis
 from .terms import ModelSpec
+from .unitstats import fit_unit_stats, relevant_range
 
 COEF_FIELDS = ("term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower", "ci_upper",
                "vif", "vif_centered")
@@ -283,8 +284,9 @@ class FitResult:
         return text
 
     def to_dict(self) -> dict:
-        """JSON-ready dict: ``model``, ``coefficients`` and ``stats``."""
-        return {
+        """JSON-ready dict: ``model``, ``coefficients``, ``stats`` (with the ``fit_space`` it
+        was computed in), ``unit_stats`` (in the data's units) and ``relevant_range``."""
+        out = {
             "model": {
                 "spec": self.model_text,
                 "terms": list(self.terms),
@@ -295,6 +297,11 @@ class FitResult:
             "coefficients": [c.to_dict() for c in self.coefficients],
             "stats": self.stats.to_dict(),
         }
+        out["stats"]["fit_space"] = "log" if self.remedy.log else "unit"
+        out["unit_stats"] = fit_unit_stats(self).to_dict()
+        out["relevant_range"] = relevant_range(np.vstack([self.x_min, self.x_max]),
+                                               self.spec.predictors)
+        return out
 
 
 def new_points(res: FitResult, new_x) -> np.ndarray:

@@ -1,0 +1,92 @@
+"""Fit statistics in the data's own units (dollars, hours), for every kind of fit.
+
+Definitions (n rows used, p estimated coefficients, y observed, f fitted, both in units):
+
+- ``see``  standard error of the estimate: sqrt(sum((y - f)^2) / (n - p));
+- ``cv``   coefficient of variation: see / mean(y) (a fraction, 0.12 for 12 %);
+- ``r2_unit``  1 - sum((y - f)^2) / sum((y - mean y)^2): the share of the variation of y
+  about its mean that the fitted values explain, in units (can be negative for a fit that
+  was not made in units, e.g. a log fit back-transformed);
+- ``bias_percent``  mean((f - y) / y) * 100: positive when the fit over-estimates on average;
+- ``spe``  standard percent error, for multiplicative-error fits only (None otherwise):
+  sqrt(sum(((y - f) / f)^2) / (n - p)), the spread of the errors as a fraction of the
+  fitted value.
+
+``fit_space`` is always "unit" here; statistics computed on a log scale live elsewhere and
+name their space beside them.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+
+def _plain(v: float) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+@dataclass(frozen=True)
+class UnitStats:
+    """Unit-space statistics of one fit; definitions in the module docstring."""
+
+    n: int
+    n_params: int
+    see: float
+    cv: float
+    r2_unit: float
+    bias_percent: float
+    spe: float  # nan unless the fit has a multiplicative error model
+    multiplicative: bool
+
+    def to_dict(self) -> dict:
+        return {"fit_space": "unit", "n": self.n, "n_params": self.n_params,
+                "df": self.n - self.n_params, "see": _plain(self.see), "cv": _plain(self.cv),
+                "r2_unit": _plain(self.r2_unit), "bias_percent": _plain(self.bias_percent),
+                "spe": _plain(self.spe) if self.multiplicative else None}
+
+
+def unit_stats(y, fitted, n_params: int, multiplicative: bool = False) -> UnitStats:
+    """SEE, CV, R² in units, percent bias and (multiplicative fits) SPE of ``fitted``
+    against ``y``, both in units; ``n_params`` coefficients were estimated."""
+    y = np.asarray(y, dtype=float).ravel()
+    f = np.asarray(fitted, dtype=float).ravel()
+    n = len(y)
+    df = n - int(n_params)
+    e = y - f
+    sse = math.fsum(e * e)
+    see = math.sqrt(sse / df) if df > 0 else math.nan
+    ybar = math.fsum(y) / n if n else math.nan
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cv = see / ybar if ybar != 0 else math.nan
+        sst = math.fsum((y - ybar) ** 2)
+        r2 = 1.0 - sse / sst if sst > 0 else math.nan
+        bias = 100.0 * math.fsum((f - y) / y) / n if n and np.all(y != 0) else math.nan
+        spe = math.nan
+        if multiplicative and df > 0 and np.all(f != 0):
+            spe = math.sqrt(math.fsum((e / f) ** 2) / df)
+    return UnitStats(n, int(n_params), see, cv, r2, bias, spe, bool(multiplicative))
+
+
+def relevant_range(x, names) -> dict[str, list[float]]:
+    """{driver name: [min, max]} over the rows used: the range a CER is supported by."""
+    x = np.asarray(x, dtype=float)
+    if x.ndim == 1:
+        x = x.reshape(-1, 1)
+    return {str(nm): [float(np.min(x[:, j])), float(np.max(x[:, j]))]
+            for j, nm in enumerate(names)}
+
+
+def fit_unit_stats(res) -> UnitStats:
+    """Unit-space statistics of a polynomial/surface ``FitResult``: a log fit is compared in
+    units through its back-transformed (smeared) fitted values; log and percent-error fits
+    count as multiplicative."""
+    remedy = res.remedy
+    y, f = res.y, res.fitted
+    if remedy.log:
+        y, f = np.exp(y), np.exp(f) * remedy.smearing
+    mult = bool(remedy.log or remedy.error == "percent")
+    return unit_stats(y, f, res.stats.n_params, multiplicative=mult)
