@@ -11,6 +11,8 @@ __version__ = "0.1.0"
 __all__ = ["__version__", "fit", "fit_groups", "GroupsResult", "FitResult", "FitStats",
            "Coefficient", "CenteredForm", "Prediction", "ModelError", "ModelSpec", "checks",
            "row_diagnostics", "scan_degrees", "optimum", "slopes"]
+# cost-estimating relationships, learning curves, base-year indexing (issue 13)
+__all__ += ["CerResult", "percentiles", "Percentiles", "unit_stats"]
 
 
 def __getattr__(name: str):

@@ -7,12 +7,16 @@ the engine does not load it or scipy.sparse.
 from typing import TYPE_CHECKING
 
 from .api import fit
+from .cer import fit_cer
+from .cerresult import CerCoefficient, CerPrediction, CerResult
 from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
 from .errors import ModelError, ModelErrorKind, check_level
 from .optimum import Optimum, Slopes, StationaryPoint, optimum, slopes
+from .percentiles import Percentiles, percentiles
 from .result import CenteredForm, Coefficient, FitResult, FitStats, NoteKind, Prediction
 from .scan import DegreeRow, DegreeScan, scan_degrees
 from .terms import ModelSpec, parse_model
+from .unitstats import UnitStats, unit_stats
 
 if TYPE_CHECKING:  # for type checkers and editors; at run time see __getattr__
     from .groups import GroupsResult, fit_groups
@@ -22,6 +26,9 @@ __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coeffi
            "ModelSpec", "parse_model", "checks", "Check", "row_diagnostics", "RowDiagnostics",
            "scan_degrees", "DegreeScan", "DegreeRow", "optimum", "Optimum", "StationaryPoint",
            "slopes", "Slopes"]
+# cost-estimating relationships, learning curves, base-year indexing (issue 13)
+__all__ += ["fit_cer", "CerResult", "CerCoefficient", "CerPrediction", "unit_stats",
+            "UnitStats", "percentiles", "Percentiles"]
 
 _LAZY = {"fit_groups", "GroupsResult"}
 

@@ -6,7 +6,8 @@ import math
 
 import numpy as np
 
-from . import inference
+from . import cer, inference
+from .cerresult import CerResult
 from .errors import ModelError, ModelErrorKind, check_level, distinct_shortage
 from .result import FitResult, Remedy
 from .solve import solve
@@ -81,7 +82,9 @@ def fit(
     se: str = "ols",
     log: bool = False,
     error: str = "additive",
-) -> FitResult:
+    method: str | None = None,
+    correction: str = "smearing",
+) -> FitResult | CerResult:
     """Least-squares fit of ``y`` on a polynomial or second-order model in ``x``.
 
     Rows with a NaN in y, x or weights are dropped and counted; everything else that cannot
@@ -111,11 +114,20 @@ def fit(
     error : {'additive', 'percent'}, default 'additive'
         'percent': multiplicative error, fitted by iteratively reweighted least squares
         with weights 1 / fitted^2.
+    method : {'log', 'mupe', 'zmpe', 'ols'}, optional
+        With ``model`` 'power', 'factor' or 'exponential': fit that cost-estimating
+        relationship by this method (see ``engine.cer``); without ``method`` such a name is
+        read as before (a term list), so a predictor called 'power' keeps working. On the
+        other models 'ols', 'log' and 'mupe' mean the default, ``log=True`` and
+        ``error='percent'``.
+    correction : {'smearing', 'normal', 'none'}, default 'smearing'
+        The back-transform correction a CER fitted by 'log' applies in units.
 
     Returns
     -------
-    FitResult
-        Coefficients with their inference, fit statistics, the centered form and notes.
+    FitResult or CerResult
+        Coefficients with their inference, fit statistics, the centered form and notes
+        (a ``CerResult`` for a CER form).
 
     Raises
     ------
@@ -137,6 +149,15 @@ def fit(
     >>> print(f"{res.stats.r2:.5f}")
     0.99995
     """
+    if cer.is_form(model) and method is not None:
+        if weights is not None or se != "ols" or log or error != "additive" or not intercept:
+            raise ModelError("weights, se, log, error and intercept apply to polynomial and "
+                             "surface models; a CER form takes method= and correction=",
+                             ModelErrorKind.SPEC)
+        return cer.fit_cer(y, x, model, method, names=names, level=level,
+                           correction=correction)
+    if method is not None:
+        log, error = cer.model_remedy(method)
     level = check_level(level)
     se = str(se).lower()
     if se not in SE_TYPES:
@@ -151,8 +172,15 @@ def fit(
     response = names_of(y)
     response = response[0] if response else "y"
     yv, xv, wv = arrays(y, x, weights)
-    spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
-                       intercept=bool(intercept))
+    try:
+        spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
+                           intercept=bool(intercept))
+    except ModelError:
+        if cer.is_form(model):  # a CER form named without its method
+            raise ModelError(f"{model.strip()!r} is a cost-estimating-relationship form: give "
+                             f"the method too ({', '.join(cer.METHODS)})",
+                             ModelErrorKind.SPEC) from None
+        raise
 
     used = ~np.isnan(yv) & ~np.isnan(xv).any(axis=1)
     if wv is not None:

@@ -252,6 +252,9 @@ class FitResult:
         q = t_quantile(self.stats.df_resid, level)
         se_m = np.sqrt(var_m)
         se_p = np.sqrt(s * s + var_m)
+        if self.remedy.error == "percent" and not self.remedy.log:
+            # multiplicative error: a new observation's spread is rmse (the SPE) times its size
+            se_p = np.sqrt((s * eta) ** 2 + var_m)
         lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
         fitted = eta
         if self.remedy.log:
