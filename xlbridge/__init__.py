@@ -12,7 +12,8 @@ __all__ = ["__version__", "fit", "fit_groups", "GroupsResult", "FitResult", "Fit
            "Coefficient", "CenteredForm", "Prediction", "ModelError", "ModelSpec", "checks",
            "row_diagnostics", "scan_degrees", "optimum", "slopes"]
 # cost-estimating relationships, learning curves, base-year indexing (issue 13)
-__all__ += ["CerResult", "percentiles", "Percentiles", "unit_stats"]
+__all__ += ["CerResult", "percentiles", "Percentiles", "unit_stats", "learning_curve",
+            "LearningCurve"]
 
 
 def __getattr__(name: str):

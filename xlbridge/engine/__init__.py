@@ -11,6 +11,7 @@ from .cer import fit_cer
 from .cerresult import CerCoefficient, CerPrediction, CerResult
 from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
 from .errors import ModelError, ModelErrorKind, check_level
+from .learning import LearningCurve, learning_curve
 from .optimum import Optimum, Slopes, StationaryPoint, optimum, slopes
 from .percentiles import Percentiles, percentiles
 from .result import CenteredForm, Coefficient, FitResult, FitStats, NoteKind, Prediction
@@ -28,7 +29,7 @@ __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coeffi
            "slopes", "Slopes"]
 # cost-estimating relationships, learning curves, base-year indexing (issue 13)
 __all__ += ["fit_cer", "CerResult", "CerCoefficient", "CerPrediction", "unit_stats",
-            "UnitStats", "percentiles", "Percentiles"]
+            "UnitStats", "percentiles", "Percentiles", "learning_curve", "LearningCurve"]
 
 _LAZY = {"fit_groups", "GroupsResult"}
 
