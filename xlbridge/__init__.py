@@ -13,7 +13,7 @@ __all__ = ["__version__", "fit", "fit_groups", "GroupsResult", "FitResult", "Fit
            "row_diagnostics", "scan_degrees", "optimum", "slopes"]
 # cost-estimating relationships, learning curves, base-year indexing (issue 13)
 __all__ += ["CerResult", "percentiles", "Percentiles", "unit_stats", "learning_curve",
-            "LearningCurve"]
+            "LearningCurve", "compare_candidates", "CandidateTable", "to_base_year"]
 
 
 def __getattr__(name: str):

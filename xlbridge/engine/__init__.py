@@ -7,11 +7,13 @@ the engine does not load it or scipy.sparse.
 from typing import TYPE_CHECKING
 
 from .api import fit
+from .candidates import CandidateRow, CandidateTable, compare_candidates
 from .cer import fit_cer
 from .cerresult import CerCoefficient, CerPrediction, CerResult
 from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
 from .errors import ModelError, ModelErrorKind, check_level
 from .learning import LearningCurve, learning_curve
+from .normalize import to_base_year
 from .optimum import Optimum, Slopes, StationaryPoint, optimum, slopes
 from .percentiles import Percentiles, percentiles
 from .result import CenteredForm, Coefficient, FitResult, FitStats, NoteKind, Prediction
@@ -29,7 +31,8 @@ __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coeffi
            "slopes", "Slopes"]
 # cost-estimating relationships, learning curves, base-year indexing (issue 13)
 __all__ += ["fit_cer", "CerResult", "CerCoefficient", "CerPrediction", "unit_stats",
-            "UnitStats", "percentiles", "Percentiles", "learning_curve", "LearningCurve"]
+            "UnitStats", "percentiles", "Percentiles", "learning_curve", "LearningCurve",
+            "compare_candidates", "CandidateTable", "CandidateRow", "to_base_year"]
 
 _LAZY = {"fit_groups", "GroupsResult"}
 
