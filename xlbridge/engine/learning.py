@@ -66,7 +66,15 @@ def _whole(v, what: str) -> int:
 class LearningCurve:
     """A learning curve: first-unit cost ``t1``, ``slope`` as a fraction (0.85 for 85 %) and
     ``theory`` 'unit' or 'cumulative'. Fitted curves also carry their inference (nan/empty
-    when built from known values)."""
+    when built from known values).
+
+    Examples
+    --------
+    >>> from xlbridge.engine import LearningCurve
+    >>> c = LearningCurve(t1=100, slope=0.85, theory="unit")
+    >>> print(f"{c.unit_cost(125):.5f} {c.cumulative_cost(125):.3f} {c.lot_cost(11, 20):.3f}")
+    32.23647 5201.085 528.621
+    """
 
     t1: float
     slope: float
@@ -174,7 +182,17 @@ def learning_curve(units, costs, theory: str = "unit", first=None, last=None,
                    level: float = 0.95) -> LearningCurve:
     """Fit a learning curve from unit data (``units``, ``costs``) or from lots (``first``,
     ``last`` unit of each lot and its total ``costs``; pass ``units=None``). Rows with a blank
-    (NaN) are dropped. The fits and the lot-midpoint rule are in the module docstring."""
+    (NaN) are dropped. The fits and the lot-midpoint rule are in the module docstring.
+
+    Examples
+    --------
+    Invented unit costs of units 1, 2, 4, 8 and 16:
+
+    >>> from xlbridge.engine import learning_curve
+    >>> lc = learning_curve([1, 2, 4, 8, 16], [100.0, 84.0, 73.0, 61.0, 52.0])
+    >>> print(f"slope {lc.slope:.4f}, T1 {lc.t1:.2f}")
+    slope 0.8498, T1 99.81
+    """
     theory = str(theory).strip().lower()
     if theory not in THEORIES:
         raise ModelError(f"theory must be 'unit' or 'cumulative'; got {theory!r}")

@@ -45,7 +45,15 @@ def index_table(index_years, index_values) -> dict[int, float]:
 def to_base_year(costs, years, index_years, index_values, base_year: int) -> np.ndarray:
     """Costs in base-year terms: cost * index[base_year] / index[year of the cost]. Blank
     (NaN) costs stay NaN. A year missing from the index raises ModelError naming the
-    1-based data row and the year."""
+    1-based data row and the year.
+
+    Examples
+    --------
+    >>> from xlbridge.engine import to_base_year
+    >>> to_base_year([100.0, 200.0], [2020, 2022], [2020, 2021, 2022], [100.0, 104.0, 110.0],
+    ...              2022).tolist()
+    [110.0, 200.0]
+    """
     table = index_table(index_years, index_values)
     base = _year(base_year, "base year")
     if base not in table:

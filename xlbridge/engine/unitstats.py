@@ -51,7 +51,16 @@ class UnitStats:
 
 def unit_stats(y, fitted, n_params: int, multiplicative: bool = False) -> UnitStats:
     """SEE, CV, R² in units, percent bias and (multiplicative fits) SPE of ``fitted``
-    against ``y``, both in units; ``n_params`` coefficients were estimated."""
+    against ``y``, both in units; ``n_params`` coefficients were estimated.
+
+    Examples
+    --------
+    >>> from xlbridge.engine import unit_stats
+    >>> s = unit_stats([10.0, 20.0, 30.0, 40.0, 50.0], [12.0, 18.0, 33.0, 37.0, 52.0], 2,
+    ...                multiplicative=True)
+    >>> print(f"SEE {s.see:.4f}  CV {s.cv:.4f}  SPE {s.spe:.4f}  bias {s.bias_percent:.2f} %")
+    SEE 3.1623  CV 0.1054  SPE 0.1372  bias 3.30 %
+    """
     y = np.asarray(y, dtype=float).ravel()
     f = np.asarray(fitted, dtype=float).ravel()
     n = len(y)
