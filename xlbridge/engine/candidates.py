@@ -19,6 +19,7 @@ from itertools import combinations
 import numpy as np
 
 from .errors import ModelError, ModelErrorKind
+from .result import plain
 
 DATA = ModelErrorKind.DATA
 MAX_DRIVERS = 3
@@ -51,13 +52,8 @@ class CandidateRow:
     note: str = ""
 
     def to_dict(self) -> dict:
-        out = {}
-        for f in fields(self):
-            v = getattr(self, f.name)
-            if isinstance(v, float):
-                v = v if math.isfinite(v) else None
-            out[f.name] = list(v) if isinstance(v, tuple) else v
-        return out
+        return {f.name: list(getattr(self, f.name)) if f.name == "drivers"
+                else plain(getattr(self, f.name)) for f in fields(self)}
 
 
 @dataclass(frozen=True)

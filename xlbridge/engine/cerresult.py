@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from .errors import ModelError, ModelErrorKind, check_level
+from .result import plain
 from .unitstats import UnitStats, relevant_range
 
 #: How each method's standard errors, p-values and intervals are obtained.
@@ -33,13 +33,6 @@ def design(form: str, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.column_stack([np.ones(n), g]), np.zeros(n)
 
 
-def _plain(v):
-    if isinstance(v, (float, np.floating)):
-        v = float(v)
-        return v if math.isfinite(v) else None
-    return v
-
-
 @dataclass(frozen=True)
 class CerCoefficient:
     """One coefficient: ``a`` (role 'scale') or a driver's exponent/slope. The test is of
@@ -56,7 +49,7 @@ class CerCoefficient:
     ci_upper: float
 
     def to_dict(self) -> dict:
-        return {k: _plain(getattr(self, k)) for k in (
+        return {k: plain(getattr(self, k)) for k in (
             "name", "role", "driver", "estimate", "std_error", "t_ratio", "p_value",
             "ci_lower", "ci_upper")}
 
@@ -102,7 +95,7 @@ class CerPrediction:
     error_model: str
 
     def to_dict(self) -> dict:
-        out = {k: [_plain(v) for v in getattr(self, k).tolist()]
+        out = {k: [plain(v) for v in getattr(self, k).tolist()]
                for k in ("fitted", "pi_lower", "pi_upper")}
         out["extrapolated"] = [bool(v) for v in self.extrapolated]
         return out | {"level": self.level, "error_model": self.error_model}
@@ -217,7 +210,7 @@ class CerResult:
             "intervals_from": INTERVAL_SOURCES[self.method],
             "unit_stats": self.unit.to_dict(),
             "relevant_range": relevant_range(self.x, self.drivers),
-            "max_vif": _plain(self.max_vif),
+            "max_vif": plain(self.max_vif),
             "details": self.details,
             "notes": list(self.notes),
         }

@@ -30,6 +30,7 @@ import numpy as np
 
 from .dist import t_quantile
 from .errors import ModelError, ModelErrorKind, check_level
+from .result import plain
 
 THEORIES = ("unit", "cumulative")
 DIRECT_SUM_MAX = 100_000  # longer sums use the Euler-Maclaurin formula
@@ -134,9 +135,6 @@ class LearningCurve:
         return self.lot_cost(1, n)
 
     def to_dict(self) -> dict:
-        def plain(v):
-            return float(v) if math.isfinite(v) else None
-
         return {"theory": self.theory, "t1": self.t1, "slope": self.slope,
                 "slope_percent": 100 * self.slope, "b": self.b, "t1_se": plain(self.t1_se),
                 "t1_interval": [plain(v) for v in self.t1_ci], "slope_se": plain(self.slope_se),
