@@ -345,3 +345,18 @@ def test_property_results_follow_the_definitions(seed, n, k, method):
         assert abs(math.fsum((y - f) / f)) < 1e-12
     pc = xlbridge.percentiles(res, x[:3])
     assert np.all(np.diff(pc.values, axis=1) > 0)
+
+
+def test_exponential_on_drivers_far_from_zero():
+    # years as the driver: the solvers work on centered drivers, so nothing is lost
+    from scipy.optimize import curve_fit
+
+    rng = np.random.default_rng(31)
+    year = np.arange(2000.0, 2020.0)
+    y = 50 * np.exp(0.03 * (year - 2000)) * np.exp(0.05 * rng.standard_normal(20))
+    ols_log = sm.OLS(np.log(y), sm.add_constant(year)).fit()  # statsmodels on the logs
+    res = fit_cer(y, year, "exponential", "log")
+    np.testing.assert_allclose(res.theta, ols_log.params, rtol=1e-10)
+    unit = fit_cer(y, year, "exponential", "ols")
+    p, _ = curve_fit(lambda t, c, b: np.exp(c + b * (t - 2010)), year, y, p0=(4.0, 0.03))
+    np.testing.assert_allclose(unit.theta, [p[0] - 2010 * p[1], p[1]], rtol=1e-7)

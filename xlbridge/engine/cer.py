@@ -93,16 +93,18 @@ def prepare(y, x, form: str, names=None):
 
 
 def _lstsq(z: np.ndarray, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Least-squares coefficients of r on z and (z'z)^-1, through QR of unit-length columns."""
+    """Least-squares coefficients of r on z and (z'z)^-1, through QR of unit-length columns
+    (``fit_cer`` hands in drivers centered at their means)."""
     norms = np.linalg.norm(z, axis=0)
+    if np.any(norms == 0) or np.any(~np.isfinite(norms)):
+        raise ModelError("a driver is constant (or not finite) in the rows used: it cannot be "
+                         "estimated; drop it", ModelErrorKind.ALIASED)
     q, rr = np.linalg.qr(z / norms)
     if np.min(np.abs(np.diag(rr))) < 1e-10:
-        raise ModelError("the drivers are (nearly) collinear or constant: one driver's "
-                         "column is a combination of the others; drop a driver",
-                         ModelErrorKind.ALIASED)
-    coef = np.linalg.solve(rr, q.T @ r) / norms
+        raise ModelError("the drivers are (nearly) collinear: one driver's column is a "
+                         "combination of the others; drop a driver", ModelErrorKind.ALIASED)
     rinv = np.linalg.inv(rr)
-    return coef, (rinv @ rinv.T) / np.outer(norms, norms)
+    return (rinv @ (q.T @ r)) / norms, (rinv @ rinv.T) / np.outer(norms, norms)
 
 
 def _vif(z: np.ndarray) -> float:
@@ -285,13 +287,20 @@ def fit_cer(y, x, form: str = "power", method: str = "log", *, names=None,
     if n <= p:
         raise ModelError(f"the {form} CER has {p} coefficients, so it needs at least {p + 1} "
                          f"rows with numbers; found {n}", SHORT)
-    theta, cov, s, factor, details = _log_fit(z, off, yu, correction)
+    # every solver works on drivers centered at their means (well scaled even for drivers
+    # far from 0, e.g. years); the constant absorbs the shift exactly on the way back
+    means = np.concatenate([[0.0], z[:, 1:].mean(axis=0)])
+    back = np.eye(p)
+    back[0, 1:] = -means[1:]
+    zc = z - means
+    theta, cov, s, factor, details = _log_fit(zc, off, yu, correction)
     with np.errstate(over="ignore", invalid="ignore"):
         if method != "log":
             factor, details = 1.0, {}
             solver = {"mupe": _mupe_fit, "zmpe": _zmpe_fit, "ols": _ols_fit}[method]
-            theta, cov, s, details = solver(z, off, yu, theta)
-        fitted = np.exp(z @ theta + off) * factor
+            theta, cov, s, details = solver(zc, off, yu, theta)
+        fitted = np.exp(zc @ theta + off) * factor
+        theta, cov = back @ theta, back @ cov @ back.T
     if not np.all(np.isfinite(fitted)) or not np.all(np.isfinite(cov)):
         raise ModelError("the fit overflowed: rescale the drivers (e.g. thousands of units)",
                          ModelErrorKind.SCALE)
