@@ -100,7 +100,7 @@ def test_ragged_and_mixed_blocks_are_refused():
     (True, cells.BOOL), (False, cells.BOOL), ("abc", cells.TEXT), ("12", cells.TEXT),
     ("#N/A", cells.ERROR), ("#DIV/0!", cells.ERROR), ("#SPILL!", cells.ERROR),
     ("#calc!", cells.ERROR), ("xlbridge: y has 3 rows", cells.ERROR), (NA, cells.ERROR),
-    (SPILL, cells.ERROR), (7, cells.ERROR), (float("inf"), cells.NONFINITE),
+    (SPILL, cells.ERROR), (float("inf"), cells.NONFINITE),
     (-float("inf"), cells.NONFINITE),
 ])
 def test_unusable_cells_give_nan_and_a_reason(value, code):
@@ -109,11 +109,12 @@ def test_unusable_cells_give_nan_and_a_reason(value, code):
     assert c.codes[1, 0] == code
 
 
-def test_ints_are_numbers_when_the_reader_says_so():
-    c = clean_cells([3, 4.5, True], ints_are_errors=False)
-    assert c.values[:2, 0].tolist() == [3.0, 4.5]
+def test_ints_are_numbers_except_the_error_codes_of_the_classic_add_in():
+    c = clean_cells([3, 4.5, True, -7, NA, np.int64(12)])
+    assert c.values[[0, 1, 3, 5], 0].tolist() == [3.0, 4.5, -7.0, 12.0]
     assert c.codes[2, 0] == cells.BOOL  # a boolean is never a number
-    assert np.isnan(clean_cells([10**400], ints_are_errors=False).values[0, 0])
+    assert c.codes[4, 0] == cells.ERROR  # #N/A's automation code: 0x800A0000 + 2042
+    assert np.isnan(clean_cells([10**400]).values[0, 0])
 
 
 def test_dates_are_their_serial_day_numbers():
@@ -453,15 +454,14 @@ def test_options_object_is_accepted_directly():
 def test_names_yes_refuses_an_error_cell_as_a_name():
     with pytest.raises(CellError, match="no name in column 1"):
         clean_cells([[NA], [1.0]], names="yes")
-    assert clean_cells([[7], [1.0]], names="yes", ints_are_errors=False).names == ("7",)
+    assert clean_cells([[7], [1.0]], names="yes").names == ("7",)
 
 
-def test_reader_values_can_be_made_xlwings_like():
-    assert cells.xlwings_like([[1, 2.5], [True, None]]) == [[1.0, 2.5], [True, None]]
-    assert cells.xlwings_like(3) == 3.0 and type(cells.xlwings_like(3)) is float
+def test_whole_numbers_as_ints_fit_like_floats():
     x, y = invented(12)
     ints = [int(round(v)) for v in x]
-    t = cells.coefs_cells(cells.xlwings_like(y), cells.xlwings_like(ints), 1.0)
+    t = cells.coefs_cells(list(y), ints, 1)
+    # numpy least squares on the same numbers, independently of the cell layer
     assert [r[1] for r in t[1:]] == pytest.approx(lstsq_poly(ints, y, 1), rel=1e-10)
 
 

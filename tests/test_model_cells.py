@@ -162,12 +162,24 @@ def test_plot_places_a_figure_beside_the_caller():
     x, y = _data(4)
     Y, X = _cells(x, y)
     caller = _FakeRange()
-    t = ws.XB_PLOT(Y, X, 2.0, "curve", None, caller)
+    t = ws.plot_cells(Y, X, 2.0, "curve", None, caller)
     assert t == [["cost against size"]]
     (fig, kw), = caller.added
     assert kw["update"] is True and kw["name"] == "xlbridge curve $H$2"
     assert fig.axes[0].get_xlabel() == "size"
-    headless = ws.XB_PLOT(Y, X, 2.0, "residuals")
-    assert "desktop only" in headless[0][0]
+
+
+def test_plot_without_a_caller_says_how_to_get_the_figure():
+    x, y = _data(4)
+    Y, X = _cells(x, y)
+    assert not ws.FILLS_CALLER  # the shim: no hidden argument to fill
+    params = ws.XB_PLOT.__code__.co_varnames[: ws.XB_PLOT.__code__.co_argcount]
+    assert params == ("y", "x", "model", "kind", "options")
+    ((msg,),) = ws.XB_PLOT(Y, X, 2.0, "residuals")
+    assert msg.startswith("xlbridge: ") and "xlbridge plot" in msg and "--kind residuals" in msg
+    assert "xlbridge report" in msg
+    # bad input is reported first, the same way as in every other function
     bad = ws.XB_PLOT(Y, X, 2.0, "pie")
     assert bad[0][0].startswith("xlbridge: kind must be one of")
+    ((short,),) = ws.XB_PLOT(Y[:3], X[:3], 2.0, "curve")
+    assert short.startswith("xlbridge: ") and "xlbridge plot" not in short

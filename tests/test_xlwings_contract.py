@@ -151,6 +151,14 @@ def test_import_functions_registers_descriptions_and_category(child):
         assert meta["volatile"] is False
         # xlwings fills "caller" itself (the calling range): not an argument in the cell
         assert all(a["err_to_str"] for a in meta["args"] if a["name"] != "caller")
+        ranges = {a["name"] for a in meta["args"] if a["ndim"] == 2}
+        assert ranges == {"y", "x", "new_x", "at_x", "group"} & set(EXPECTED_ARGS[name])
+
+
+def test_only_the_classic_add_in_gets_the_hidden_caller(child):
+    assert child["fills_caller"] is True
+    names = [a["name"] for a in child["metadata"]["XB_PLOT"]["args"]]
+    assert names == EXPECTED_ARGS["XB_PLOT"] + ["caller"]
 
 
 def test_what_xlwings_hands_the_functions(child):
@@ -159,9 +167,10 @@ def test_what_xlwings_hands_the_functions(child):
     # blanks and "" become None; dates datetime; booleans stay booleans
     assert reads["read_block"] == [[1.5, {"datetime": "2024-01-02T06:00:00"}],
                                    ["#N/A", SPILL], [True, None], [None, "text"]]
-    assert reads["read_cell"] == "#N/A"
-    assert reads["read_row"] == [1.0, 2.0, 3.0]
-    assert reads["read_column"] == [1.0, None, 3.0]
+    # ndim=2 on range arguments: one cell, one row and one column keep their orientation
+    assert reads["read_cell"] == [["#N/A"]]
+    assert reads["read_row"] == [[1.0, 2.0, 3.0]]
+    assert reads["read_column"] == [[1.0], [None], [3.0]]
 
 
 def assert_cells(table):

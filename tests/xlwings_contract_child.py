@@ -184,7 +184,8 @@ def _metadata() -> dict:
         out[name] = {
             "category": xf["category"], "volatile": xf["volatile"], "doc": xf["ret"]["doc"],
             "args": [{"name": a["name"], "doc": a["doc"], "optional": "optional" in a,
-                      "err_to_str": a["options"].get("err_to_str", False)}
+                      "err_to_str": a["options"].get("err_to_str", False),
+                      "ndim": a["options"].get("ndim")}
                      for a in xf["args"]],
             "shim": f.__xlbridge_udf__ if hasattr(f, "__xlbridge_udf__") else None,
         }
@@ -206,6 +207,7 @@ def main() -> None:
     wb = _import_udfs()
     doc = {
         "decorators": ws.DECORATORS,
+        "fills_caller": ws.FILLS_CALLER,
         "vba": _vba(),
         "imported_vba": wb.imported,
         "macro_options": wb.macro_options,

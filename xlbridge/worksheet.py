@@ -3,16 +3,23 @@
 Each function returns a plain 2-D list (it spills into cells) or a one-cell ``xlbridge: ...``
 message; it never raises. The work is done in ``xlbridge.cells``; fits are cached there.
 Placing a figure on the sheet (``XB_PLOT``) is done here: this is the only module that
-touches xlwings.
+touches xlwings, and it uses only xlwings' open-source core (never ``xlwings.pro`` or
+``xlwings.server``).
 
-Decorators: the functions carry the open-source xlwings decorators (``func`` outermost,
-then ``arg`` / ``ret``). Importing xlwings costs over a second and the command line calls
-these same functions headlessly, so the decorators come from xlwings only when
-- xlwings is already imported (the desktop UDF server imports it before this module), or
-- the environment variable ``XLBRIDGE_XLWINGS=real`` asks for it;
-otherwise (``XLBRIDGE_XLWINGS`` unset/``auto`` without xlwings loaded, or ``shim``) a
-small shim with the same call signatures records the same metadata in ``__xlbridge_udf__``
-and leaves the functions unchanged. ``FUNCTIONS`` maps each name to its function.
+Runtimes (docs/runtimes.md): the classic Windows add-in imports this module as a UDF
+module; the runtimes in the spreadsheet program's JavaScript host register the functions
+from a ``main.py`` of one line, ``from xlbridge.worksheet import *``, which exports exactly
+the ``XB_`` functions. Both read the same decorators: ``func`` (outermost), ``arg`` with
+``doc``, ``err_to_str`` and ``ndim=2`` for ranges; the cell layer accepts every shape
+anyway, so nothing depends on a runtime honouring them.
+
+Decorators come from xlwings only when it is the runtime: xlwings is already imported (the
+desktop UDF server imports it before this module), the code runs in the browser Python or
+on an xlwings server, or ``XLBRIDGE_XLWINGS=real`` asks for it. Otherwise (the command
+line, the runner, tests; ``XLBRIDGE_XLWINGS`` unset/``auto`` or ``shim``) a small shim with
+the same call signatures records the same metadata in ``__xlbridge_udf__`` and leaves the
+functions unchanged, because importing xlwings costs over a second. ``FUNCTIONS`` maps
+each name to its function.
 """
 
 from __future__ import annotations
@@ -24,11 +31,12 @@ from types import SimpleNamespace
 from typing import Any, TypeVar
 
 from . import cells
-from .cells import Table, run_guarded
+from .cells import CellError, CellErrorKind, Table, run_guarded
 
+# exactly the worksheet functions: a runtime registers everything `import *` brings along
+# that carries xlwings' metadata, so nothing else may be exported
 __all__ = ["XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREESCAN", "XB_CHECKS",
-           "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS",
-           "FUNCTIONS", "CATEGORY", "DECORATORS"]
+           "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"]
 
 CATEGORY = "xlbridge"
 
@@ -67,9 +75,16 @@ def _shim_ret(convert: Any = None, **kwargs: Any) -> Callable[[F], F]:
     return inner
 
 
+def _in_runtime() -> bool:
+    """True where xlwings runs the functions: already imported (the classic add-in's UDF
+    server), the browser Python of the JavaScript host, or an xlwings server."""
+    return ("xlwings" in sys.modules or sys.platform == "emscripten"
+            or os.environ.get("XLWINGS_ON_SERVER", "").lower() == "true")
+
+
 def _decorators() -> tuple[Any, str]:
     choice = os.environ.get("XLBRIDGE_XLWINGS", "auto").strip().lower()
-    if choice == "real" or (choice == "auto" and "xlwings" in sys.modules):
+    if choice == "real" or (choice == "auto" and _in_runtime()):
         import xlwings
 
         return xlwings, "xlwings"
@@ -77,6 +92,17 @@ def _decorators() -> tuple[Any, str]:
 
 
 xw, DECORATORS = _decorators()
+
+#: True in the classic Windows add-in, whose decorators fill a parameter named ``caller``
+#: with the calling range and leave it out of the cell's arguments. The runtimes of the
+#: JavaScript host would show such a parameter as an ordinary argument, so XB_PLOT has it
+#: only here.
+FILLS_CALLER = getattr(xw.func, "__module__", "") == "xlwings.udfs"
+
+#: Range arguments arrive as a list of rows even for one row, column or cell where the
+#: runtime honours ``ndim``; the cell layer reads flat lists and scalars the same way.
+RANGE = {"ndim": 2, "err_to_str": True}
+CELL = {"err_to_str": True}
 
 _Y = "The values to model: one column (or row) of numbers. A text first row is its name."
 _X = ("The predictor column(s), same height as y; one column for a degree, 2-6 columns for "
@@ -90,120 +116,142 @@ _NEW_X = ("Points to predict at: one row per point, one column per predictor. Re
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_COEFS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Coefficients of a least-squares polynomial or second-order model: term, estimate, std_error, t_ratio, p_value, ci_lower, ci_upper, vif, vif_centered."""  # noqa: E501
     return run_guarded(cells.coefs_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_STATS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Fit statistics of the model as two columns, statistic and value: rows used and dropped, R2, adjusted R2, RMSE, F test, AIC, BIC, PRESS, condition number, notes."""  # noqa: E501
     return run_guarded(cells.stats_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("new_x", doc=_NEW_X, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("new_x", doc=_NEW_X, **RANGE)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_PREDICT(y: Any, x: Any, model: Any, new_x: Any, options: Any = None) -> Table:
     """Predictions at new_x, one row per new_x row: fitted, ci_lower, ci_upper (mean), pi_lower, pi_upper (new observation), leverage, range_flag."""  # noqa: E501
     return run_guarded(cells.predict_cells, y, x, model, new_x, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_EQUATION(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """The fitted equation in raw units as text, with full-precision coefficients, for reports."""  # noqa: E501
     return run_guarded(cells.equation_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("max_degree", doc="Highest polynomial degree to try, 1-10.", err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("max_degree", doc="Highest polynomial degree to try, 1-10.", **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_DEGREESCAN(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
     """Degree scan 1..max_degree: r2, adj_r2, rmse, aic, aicc, bic, press, pred_r2, cross-validated rmse, tests, and the recommended degree (one-standard-error rule)."""  # noqa: E501
     return run_guarded(cells.degrees_cells, y, x, max_degree, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_CHECKS(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Checks of the regression assumptions (normality, constant variance, independence, outliers, influence, collinearity, extrapolation, rows per term) with verdicts ok / watch / problem."""  # noqa: E501
     return run_guarded(cells.checks_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_ROWDIAG(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Per input row: fitted, residual, standardized and studentized residuals, leverage, Cook's distance and a flag; rows line up with y and x."""  # noqa: E501
     return run_guarded(cells.rows_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_OPTIMUM(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """Where the fitted curve or surface turns: stationary point with delta-method interval, fitted value there, minimum / maximum / saddle / ridge, inside the data or not."""  # noqa: E501
     return run_guarded(cells.optimum_cells, y, x, model, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
 @xw.arg("at_x", doc="Points to take the slope at: one row per point, one column per "
-        "predictor. Result rows line up with these rows.", err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
+        "predictor. Result rows line up with these rows.", **RANGE)
+@xw.arg("options", doc=_OPTIONS, **CELL)
 def XB_MARGINAL(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
     """Marginal effect dy/dx of each predictor at the given points, e.g. the added price of one more unit of size, with delta-method standard error and interval."""  # noqa: E501
     return run_guarded(cells.slope_cells, y, x, model, at_x, options)
 
 
-@xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
-@xw.arg("kind", doc="Figure: curve, residuals, quantiles, influence, degrees or contour.",
-        err_to_str=True)
-@xw.arg("options", doc=_OPTIONS, err_to_str=True)
-@xw.arg("caller", doc="Filled in by xlwings: the calling cell (the figure goes beside it).")
-def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
-            caller: Any = None) -> Table:
-    """Places a figure of the fit beside the calling cell (xlwings pictures, updated in place) and returns its title: curve with bands, residuals, quantiles, influence, degrees, contour."""  # noqa: E501
-    return run_guarded(_plot_cells, y, x, model, kind, options, caller)
+_PLOT_DOC = "Classic Windows add-in: places a figure of the fit beside the calling cell (updated in place) and returns its title. Elsewhere: checks the inputs and says how to get the figure. Kinds: curve, residuals, quantiles, influence, degrees, contour."  # noqa: E501
+_KIND = "Figure: curve, residuals, quantiles, influence, degrees or contour."
 
 
-def _plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
+def _declare_plot(f: F) -> F:
+    f.__doc__ = _PLOT_DOC
+    for name, doc, opts in (("options", _OPTIONS, CELL), ("kind", _KIND, CELL),
+                            ("model", _MODEL, CELL), ("x", _X, RANGE), ("y", _Y, RANGE)):
+        f = xw.arg(name, doc=doc, **opts)(f)
+    return xw.func(category=CATEGORY)(f)
+
+
+# Two signatures, one behaviour: only the classic add-in fills ``caller`` without showing
+# it as an argument (FILLS_CALLER); everywhere else XB_PLOT takes what the user types.
+if FILLS_CALLER:
+    def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
                 caller: Any = None) -> Table:
-    """Build the figure (``cells.plot_figure``); with ``caller`` (the calling range, as
-    xlwings passes it on the desktop) place it beside that cell through xlwings' pictures
-    API, updating the picture of the same name. Returns the figure's title, one cell."""
-    fig = cells.plot_figure(y, x, model, kind, options)
+        return plot_cells(y, x, model, kind, options, caller)
+else:
+    def XB_PLOT(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> Table:
+        return plot_cells(y, x, model, kind, options)
+
+XB_PLOT = _declare_plot(XB_PLOT)
+
+
+def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
+               caller: Any = None) -> Table:
+    """XB_PLOT's work, never raising. With ``caller`` (the calling range the classic add-in
+    passes) build the figure and place it beside that cell through xlwings' pictures API,
+    updating the picture of the same name, and return its title; without one, check the
+    inputs and return a message saying how to get the figure from the command line."""
+    return run_guarded(_plot_or_explain, y, x, model, kind, options, caller)
+
+
+def _plot_or_explain(y: Any, x: Any, model: Any, kind: Any, options: Any,
+                     caller: Any) -> Table:
     if caller is None:
-        return [[f"{fig.title} (figure placed on the desktop only; headless: xlbridge plot)"]]
+        k = cells.plot_input(y, x, model, kind, options).kind  # bad input says so first
+        raise CellError(
+            f"the {k} figure cannot be placed from this cell: only the classic Windows "
+            "add-in places pictures. Get it on the command line: xlbridge plot BOOK --y REF "
+            f"--x REF --model M --kind {k} --out FOLDER (or xlbridge report BOOK --y REF "
+            "--x REF --model M --out report.html)", CellErrorKind.RESULT)
+    fig = cells.plot_figure(y, x, model, kind, options)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     FigureCanvasAgg(fig.figure)
@@ -216,12 +264,12 @@ def _plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
 
 @xw.func(category=CATEGORY)
 @xw.arg("group", doc="The group of each row (product family, region, supplier...): text, "
-        "numbers or blanks, same height as y.", err_to_str=True)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc=_MODEL, err_to_str=True)
+        "numbers or blanks, same height as y.", **RANGE)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc=_MODEL, **CELL)
 @xw.arg("options", doc="Optional text: level=0.95; intercept=yes; header=yes; names=auto.",
-        err_to_str=True)
+        **CELL)
 def XB_GROUPS(group: Any, y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """One model per group, all groups at once: one row per group with n_used, each coefficient and its standard error, r2, adj_r2, rmse and a flag (too few rows, rank deficient...)."""  # noqa: E501
     return run_guarded(cells.groups_cells, group, y, x, model, options)

@@ -9,8 +9,8 @@ import datetime as dt
 import re
 from collections.abc import Sequence
 
-__all__ = ["EPOCH", "ERROR_TEXTS", "MESSAGE_PREFIX", "is_error_text", "is_message_cell",
-           "serial_of", "date_of"]
+__all__ = ["EPOCH", "ERROR_CODES", "ERROR_TEXTS", "MESSAGE_PREFIX", "is_error_code",
+           "is_error_text", "is_message_cell", "serial_of", "date_of"]
 
 #: Error values a spreadsheet program shows in a cell (the classic seven, the dynamic-array
 #: and data-type ones, and those of hosted runtimes). Anything else of the shape ``#WORD!``
@@ -21,6 +21,11 @@ ERROR_TEXTS = frozenset({
     "#PYTHON!", "#TIMEOUT!",
 })
 _ERROR_LIKE = re.compile(r"#[A-Z][A-Z0-9_/]*[!?]")
+
+#: Error cells as the classic Windows add-in passes those it does not turn into text (the
+#: newer ones such as ``#SPILL!``): a whole number, the error's automation code. Codes are
+#: 0x800A0000 + 2000..2099 as a signed 32-bit number, e.g. ``#N/A`` = -2146826246.
+ERROR_CODES = range(-2146828288 + 2000, -2146828288 + 2100)
 
 #: How a message of ours begins. A worksheet function that cannot give a result returns one
 #: cell holding ``xlbridge: what to fix``, where a spreadsheet function would show an error
@@ -38,6 +43,15 @@ def is_error_text(text: str) -> bool:
     s = text.strip()
     return (s.upper() in ERROR_TEXTS or bool(_ERROR_LIKE.fullmatch(s))
             or s.lower().startswith(MESSAGE_PREFIX))
+
+
+def is_error_code(value: int) -> bool:
+    """True for a whole number that is an error cell's automation code (:data:`ERROR_CODES`).
+
+    Numbers reach Python from that add-in as ``float``, so only an ``int`` is read this way;
+    a whole number in this narrow band (about -2.1468e9) from any other source is taken as an
+    error cell too, which drops its row rather than fitting a wrong number."""
+    return value in ERROR_CODES
 
 
 def is_message_cell(table: Sequence[Sequence[object]]) -> bool:

@@ -21,13 +21,13 @@ __all__ = ["groups_fit", "groups_table", "groups_cells"]
 
 
 def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
-               ints_are_errors: bool = True, weights: Any = None
+               weights: Any = None
                ) -> tuple[GroupsResult, Options, list[str]]:
     """One model per group from raw cells: ``(GroupsResult, Options, notes)``. The group
     cells line up with y's rows (a header row of y and x is one of the group cells too)."""
     from ..engine import fit_groups  # grouped fits load their solver only when used
 
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors, weights=weights)
+    inp = prepare_fit(y, x, model, options, weights=weights)
     unsupported = [k for k in ("log", "se", "error")
                    if getattr(inp.options, k) != getattr(Options(), k)]
     if unsupported:
@@ -43,7 +43,7 @@ def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
     if len(keys) < n or any(k is not None for k in keys[n:]):
         raise CellError(f"group has {len(keys)} rows but y has {n}; select ranges of the same "
                         "height", CellErrorKind.SHAPE)
-    cleaned = [group_key(k, ints_are_errors) for k in keys[:n]]
+    cleaned = [group_key(k) for k in keys[:n]]
     usable = np.array([ok for _, ok in cleaned], dtype=bool)
     notes = []
     if not usable.all():
@@ -74,7 +74,6 @@ def groups_table(res: GroupsResult, options: Options | None = None,
     return finish_table(rows)
 
 
-def groups_cells(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
-                 ints_are_errors: bool = True) -> Table:
-    res, opts, notes = groups_fit(group, y, x, model, options, ints_are_errors=ints_are_errors)
+def groups_cells(group: Any, y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts, notes = groups_fit(group, y, x, model, options)
     return groups_table(res, opts, notes)

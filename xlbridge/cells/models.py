@@ -22,14 +22,14 @@ from ..engine.terms import MAX_DEGREE
 from .cache import SCAN_CACHE, content_key
 from .errors import CellError, CellErrorKind, Table
 from .options import Options
-from .prepare import fit_cells, fit_prepared, prepare_fit
+from .prepare import FitInput, fit_cells, fit_prepared, prepare_fit
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import drop_reason, single_value
 
 __all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
-           "scan_cells", "plot_figure"]
+           "scan_cells", "PlotInput", "plot_input", "plot_figure"]
 
 DEGREE_COLUMNS = ("degree", "r2", "adj_r2", "rmse", "aic", "aicc", "bic", "press", "pred_r2",
                   "cv_rmse", "cv_se", "top_term_p_value", "nested_f_p_value", "choice", "note")
@@ -49,9 +49,9 @@ def _max_degree(value: Any) -> Any:
 
 
 def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
-               ints_are_errors: bool = True, weights: Any = None) -> tuple[DegreeScan, Options]:
+               weights: Any = None) -> tuple[DegreeScan, Options]:
     """Degree scan of raw cells (cached by content)."""
-    inp = prepare_fit(y, x, 1, options, ints_are_errors=ints_are_errors, weights=weights)
+    inp = prepare_fit(y, x, 1, options, weights=weights)
     if inp.x.shape[1] != 1:
         raise CellError(f"the degree scan needs one x column; x has {inp.x.shape[1]}",
                         CellErrorKind.SHAPE)
@@ -79,9 +79,8 @@ def degrees_table(scan: DegreeScan, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def degrees_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
-                  ints_are_errors: bool = True) -> Table:
-    scan, opts = scan_cells(y, x, max_degree, options, ints_are_errors=ints_are_errors)
+def degrees_cells(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table:
+    scan, opts = scan_cells(y, x, max_degree, options)
     return degrees_table(scan, opts)
 
 
@@ -94,9 +93,8 @@ def checks_table(result: FitResult, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def checks_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-                 ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+def checks_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
     return checks_table(res, opts)
 
 
@@ -111,9 +109,8 @@ def rows_table(result: FitResult, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def rows_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-               ints_are_errors: bool = True) -> Table:
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+def rows_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    inp = prepare_fit(y, x, model, options)
     res = fit_prepared(inp)
     table = rows_table(res, inp.options)
     # say why a row was left out, as the cell rules saw it
@@ -147,9 +144,8 @@ def optimum_table(result: FitResult, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def optimum_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-                  ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+def optimum_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
     try:
         return optimum_table(res, opts)
     except ModelError as exc:
@@ -165,12 +161,10 @@ def _slope_columns(predictors: tuple[str, ...]) -> list[str]:
     return cols + ["range_flag"]
 
 
-def slope_table(result: FitResult, at_x: Any, options: Options | None = None, *,
-                ints_are_errors: bool = True) -> Table:
+def slope_table(result: FitResult, at_x: Any, options: Options | None = None) -> Table:
     """dy/dx_j at each row of ``at_x`` with delta-method SE and interval, aligned rows."""
     opts = options or Options()
-    pts, good, codes = new_points(result, at_x, opts, ints_are_errors=ints_are_errors,
-                                  what="at_x")
+    pts, good, codes = new_points(result, at_x, opts, what="at_x")
     cols = _slope_columns(result.spec.predictors)
     rows: list[list[Any]] = [cols] if opts.header else []
     sl = slopes(result, pts, opts.level) if good.any() else None
@@ -186,10 +180,9 @@ def slope_table(result: FitResult, at_x: Any, options: Options | None = None, *,
     return finish_table(rows)
 
 
-def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None, *,
-                ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
-    return slope_table(res, at_x, opts, ints_are_errors=ints_are_errors)
+def slope_cells(y: Any, x: Any, model: Any, at_x: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
+    return slope_table(res, at_x, opts)
 
 
 @dataclass(frozen=True)
@@ -202,21 +195,41 @@ class FitFigure:
     figure: Any
 
 
-def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> FitFigure:
-    """Build one figure of the fit (for ``degrees``, ``model`` is the highest degree)."""
-    from ..plots import KINDS, contour, curve, degree_scan, influence, normal_quantiles
-    from ..plots import residuals as residual_plot
+@dataclass(frozen=True)
+class PlotInput:
+    """Checked inputs of a figure: ``kind`` (lower case), the prepared cells, and the fit
+    (None for ``degrees``, whose ``top`` degree is the model cell)."""
+
+    kind: str
+    inp: FitInput
+    result: FitResult | None
+    top: Any = None
+
+
+def plot_input(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> PlotInput:
+    """Check a figure's cells and fit the model, without loading a plotting library."""
+    from ..plots import KINDS
 
     k = single_value(kind, "kind")
     k = k.strip().lower() if isinstance(k, str) else k
     if k not in KINDS:
         raise CellError(f"kind must be one of {', '.join(KINDS)}; got {kind!r}")
     inp = prepare_fit(y, x, 1 if k == "degrees" else model, options)
-    res = None if k == "degrees" else fit_prepared(inp)
+    if k == "degrees":
+        return PlotInput(k, inp, None, _max_degree(model))
+    return PlotInput(k, inp, fit_prepared(inp))
+
+
+def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> FitFigure:
+    """Build one figure of the fit (for ``degrees``, ``model`` is the highest degree)."""
+    from ..plots import contour, curve, degree_scan, influence, normal_quantiles
+    from ..plots import residuals as residual_plot
+
+    p = plot_input(y, x, model, kind, options)
+    k, inp, res = p.kind, p.inp, p.result
     try:
         if k == "degrees":
-            top = _max_degree(model)
-            fig = degree_scan(scan_degrees(inp.y, inp.x[:, 0], top, folds=inp.options.folds,
+            fig = degree_scan(scan_degrees(inp.y, inp.x[:, 0], p.top, folds=inp.options.folds,
                                            **inp.options.fit_kwargs()))
         elif k == "contour":
             try:

@@ -61,12 +61,12 @@ class FitInput:
 
 
 def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
-                ints_are_errors: bool = True, weights: Any = None) -> FitInput:
+                weights: Any = None) -> FitInput:
     """Check and clean the cells of y, x, model, options (and optional weight cells, one
     per row); raises CellError / OptionsError. Trailing rows blank in y and every x column
     (a whole-column selection) are not data and are not counted as dropped."""
-    opts = options_value(options, ints_are_errors=ints_are_errors)
-    mod = model_value(model, ints_are_errors=ints_are_errors)
+    opts = options_value(options)
+    mod = model_value(model)
     y_grid = grid_of(y, "y").transposed_line()  # a row of y values reads as a column
     if y_grid.cols > 1:
         raise CellError(f"y must be one column (or one row); got {y_grid.rows} rows x "
@@ -74,8 +74,8 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     x_grid = grid_of(x, "x")
     if x_grid.rows == 1 and x_grid.cols == y_grid.rows > 1:
         x_grid = x_grid.transposed_line()  # a row of x values beside a row of y values
-    yc = clean_cells(y_grid, "y", names=opts.names, ints_are_errors=ints_are_errors)
-    xc = clean_cells(x_grid, "x", names=opts.names, ints_are_errors=ints_are_errors)
+    yc = clean_cells(y_grid, "y", names=opts.names)
+    xc = clean_cells(x_grid, "x", names=opts.names)
     if yc.n_rows == 0 or yc.n_cols == 0:
         raise CellError("y is empty; select the column of numbers to model", SHAPE)
     if xc.n_rows == 0 or xc.n_cols == 0:
@@ -100,7 +100,7 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     wv = None
     if weights is not None:
         wc = clean_cells(grid_of(weights, "weights").transposed_line(), "weights",
-                         names=opts.names, ints_are_errors=ints_are_errors)
+                         names=opts.names)
         if wc.n_cols != 1:
             raise CellError(f"weights must be one column; got {wc.n_cols} columns", SHAPE)
         if wc.n_rows < n or np.any(wc.codes[n:] != BLANK):
@@ -147,8 +147,7 @@ def fit_prepared(inp: FitInput) -> FitResult:
     return FIT_CACHE.get_or_compute(inp.key(), lambda: _fit_now(inp))
 
 
-def fit_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-              ints_are_errors: bool = True) -> tuple[FitResult, Options]:
+def fit_cells(y: Any, x: Any, model: Any, options: Any = None) -> tuple[FitResult, Options]:
     """Fit raw cell values; returns the (cached) FitResult and the parsed options."""
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+    inp = prepare_fit(y, x, model, options)
     return fit_prepared(inp), inp.options

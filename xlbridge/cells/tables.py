@@ -162,7 +162,7 @@ def _order_by_names(block: CleanCells, predictors: tuple[str, ...]) -> CleanCell
 
 
 def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
-               ints_are_errors: bool = True, what: str = "new_x"
+               what: str = "new_x"
                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Points to evaluate a fit at, from raw cells: ``(points, good, codes)`` with one entry
     per row of ``what`` (after its header); ``points`` holds only the usable rows."""
@@ -179,8 +179,7 @@ def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
                                 f"model has {k} predictors ({', '.join(predictors)}); "
                                 "give one row per point, one column per predictor", SHAPE)
             flat_as_row = True
-    block = clean_cells(raw, what, names=opts.names, ints_are_errors=ints_are_errors,
-                        flat_as_row=flat_as_row)
+    block = clean_cells(raw, what, names=opts.names, flat_as_row=flat_as_row)
     if block.n_rows == 0:
         raise CellError(f"{what} has no rows; select the x values to evaluate at", SHAPE)
     if block.n_cols != k:
@@ -207,13 +206,12 @@ def aligned_rows(good: np.ndarray, codes: np.ndarray, width: int, what: str,
     return rows
 
 
-def predict_table(result: FitResult, new_x: Any, options: Options | None = None, *,
-                  ints_are_errors: bool = True) -> Table:
+def predict_table(result: FitResult, new_x: Any, options: Options | None = None) -> Table:
     """One row per row of ``new_x`` (after its header row, if any): fitted value,
     confidence and prediction intervals, leverage and ``range_flag`` (``inside``,
     ``extrapolated`` or ``dropped: ...`` with blanks for a row that has no usable x)."""
     opts = options or Options()
-    pts, good, codes = new_points(result, new_x, opts, ints_are_errors=ints_are_errors)
+    pts, good, codes = new_points(result, new_x, opts)
     rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
     pred = result.predict(pts, level=opts.level) if good.any() else None
 
@@ -265,27 +263,23 @@ def info_table(options: Options | None = None) -> Table:
 
 # --- one call per worksheet function (raise on bad input; wrap with ``guarded``) ------------
 
-def coefs_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-                ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+def coefs_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
     return coef_table(res, opts)
 
 
-def stats_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-                ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+def stats_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
     return stats_table(res, opts)
 
 
-def predict_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None, *,
-                  ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
-    return predict_table(res, new_x, opts, ints_are_errors=ints_are_errors)
+def predict_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
+    return predict_table(res, new_x, opts)
 
 
-def equation_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-                   ints_are_errors: bool = True) -> Table:
-    res, opts = fit_cells(y, x, model, options, ints_are_errors=ints_are_errors)
+def equation_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, opts = fit_cells(y, x, model, options)
     return equation_text(res, opts)
 
 

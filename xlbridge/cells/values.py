@@ -1,16 +1,27 @@
 """Raw spreadsheet cell values of every shape in, numbers out: the one front door.
 
-The values are what xlwings hands a function (a scalar for one cell, a flat list for one row
-or column, a list of lists for a block; blanks ``None``; numbers ``float``; dates
-``datetime``; booleans ``bool``; error cells ``None``, text such as ``"#N/A"``, or a negative
-``int`` for the newer errors) or what a workbook reader returns.
+Every xlwings runtime, a workbook reader and plain Python callers hand cells over in one of
+these shapes, and the same cells give the same numbers whatever the shape:
 
-Cell rules (see ``clean_cells``): a blank, text, boolean or error cell makes its row unusable;
-such rows are dropped listwise by the engine and counted in ``FitResult.n_dropped``. Dates
-count as their serial day number (``book.values.serial_of``), the number the cell holds.
-With ``ints_are_errors=True`` (xlwings, whose numbers are always ``float``) a non-bool
-``int`` is an error cell; readers of saved files pass ``False`` because they return whole
-numbers as ``int``.
+- a block: a list (or tuple) of rows, or a 2-D numpy array; one row or one column declared
+  ``ndim=2`` also arrives this way;
+- a flat list (or tuple, or 1-D array): one row or one column whose orientation the runtime
+  dropped. For y, x, weights and group it is one column (a row of y is the same values).
+  For new_x / at_x it is a column of points when the model has one predictor and one point
+  (one row) when it has k > 1 predictors and the list holds exactly k values; any other
+  length is refused (``tables.new_points``). A flat x is always one predictor column: a
+  single row of k predictors would be one observation, which no model can be fitted to;
+- a scalar: one cell.
+
+Cell values (see ``clean_cells``): numbers are ``float`` or ``int`` (the runtimes in the
+spreadsheet program's JavaScript host and the file readers pass whole numbers as ``int``),
+numpy numbers, ``Decimal``; dates are ``datetime`` / ``date`` / ``time`` (their serial day
+number, ``book.values.serial_of``) or already serial numbers; blanks ``None`` or ``""``;
+booleans ``bool`` (never 1/0: text-like, the row is left out); error cells ``None`` (the
+JavaScript host without ``err_to_str``), text such as ``"#N/A"``, or the automation code of
+an error as an ``int`` (the classic Windows add-in, for the newer errors such as
+``#SPILL!``; ``book.values.is_error_code``). A blank, text, boolean or error cell makes its
+row unusable; such rows are dropped listwise and counted in ``FitResult.n_dropped``.
 """
 
 from __future__ import annotations
@@ -24,14 +35,14 @@ from typing import Any
 
 import numpy as np
 
-from ..book.values import is_error_text, serial_of
+from ..book.values import is_error_code, is_error_text, serial_of
 from .errors import CellError, CellErrorKind
 from .options import Options, parse_options
 
 __all__ = ["OK", "BLANK", "BOOL", "TEXT", "NONFINITE", "ERROR", "MODEL_HELP", "CleanCells",
            "Grid", "clean_cells", "drop_reason", "drop_summary", "drops_text", "from_array",
            "grid_of", "group_key", "is_error_text", "model_value", "options_value",
-           "row_codes", "single_value", "xlwings_like"]
+           "row_codes", "single_value"]
 
 SHAPE = CellErrorKind.SHAPE
 
@@ -48,7 +59,7 @@ def _number(v: float) -> tuple[float, int]:
     return math.nan, BLANK if math.isnan(v) else NONFINITE
 
 
-def _cell(v: Any, ints_are_errors: bool) -> tuple[float, int]:
+def _cell(v: Any) -> tuple[float, int]:
     """(value, code): the number a cell holds, or NaN and why it is not usable."""
     if v is None:
         return math.nan, BLANK
@@ -56,8 +67,8 @@ def _cell(v: Any, ints_are_errors: bool) -> tuple[float, int]:
         return _number(v)
     if isinstance(v, (bool, np.bool_)):
         return math.nan, BOOL
-    if isinstance(v, int):
-        if ints_are_errors:
+    if isinstance(v, (int, np.integer)):
+        if is_error_code(v):
             return math.nan, ERROR
         try:
             return _number(float(v))
@@ -80,11 +91,11 @@ def _cell(v: Any, ints_are_errors: bool) -> tuple[float, int]:
     return math.nan, TEXT
 
 
-def _convert(values: list, ints_are_errors: bool) -> tuple[np.ndarray, np.ndarray]:
+def _convert(values: list) -> tuple[np.ndarray, np.ndarray]:
     """Numbers and reason codes for a flat list of cell values."""
     kinds = set(map(type, values))
     if kinds <= {float, type(None)}:
-        # fast path: what xlwings hands over for clean numeric ranges (None -> NaN)
+        # fast path: what the classic add-in hands over for numeric ranges (None -> NaN)
         arr = np.array(values, dtype=float) if values else np.empty(0)
         codes = np.zeros(arr.shape, dtype=np.int8)
         bad = ~np.isfinite(arr)
@@ -93,7 +104,7 @@ def _convert(values: list, ints_are_errors: bool) -> tuple[np.ndarray, np.ndarra
             codes[np.isinf(arr)] = NONFINITE
             arr[bad] = np.nan
         return arr, codes
-    pairs = [_cell(v, ints_are_errors) for v in values]
+    pairs = [_cell(v) for v in values]
     arr = np.array([p[0] for p in pairs], dtype=float)
     codes = np.array([p[1] for p in pairs], dtype=np.int8)
     return arr, codes
@@ -116,9 +127,13 @@ class Grid:
 
 
 def from_array(value: Any) -> Any:
-    """A numpy array as the nested lists xlwings would hand over; anything else as is."""
+    """A numpy array as the nested lists a runtime would hand over (a 0-d array as its one
+    value); anything else as is."""
     if isinstance(value, np.ndarray):
-        # a numeric array holds numbers only: its ints are not error cells
+        if value.ndim > 2:
+            raise CellError(f"an array of {value.ndim} dimensions is not a block of cells; "
+                            "give rows of values", SHAPE)
+        # a numeric array holds numbers only: its whole numbers are never error codes
         return (value.astype(float) if value.dtype.kind in "iu" else value).tolist()
     return value
 
@@ -156,12 +171,12 @@ def _is_name(v: Any) -> bool:
     return isinstance(v, str) and bool(v.strip()) and not is_error_text(v)
 
 
-def _name_text(v: Any, what: str, col: int, ints_are_errors: bool) -> str:
+def _name_text(v: Any, what: str, col: int) -> str:
     if _is_name(v):
         return " ".join(v.split())
     if isinstance(v, float) and math.isfinite(v):
         return repr(int(v)) if v.is_integer() else repr(v)
-    if isinstance(v, int) and not isinstance(v, bool) and not ints_are_errors:
+    if isinstance(v, int) and not isinstance(v, bool) and not is_error_code(v):
         return str(v)
     raise CellError(
         f"names=yes, but the first row of {what} has no name in column {col + 1}; "
@@ -169,14 +184,13 @@ def _name_text(v: Any, what: str, col: int, ints_are_errors: bool) -> str:
     )
 
 
-def _split_header(g: Grid, names: str, what: str,
-                  ints_are_errors: bool) -> tuple[tuple[str, ...] | None, Grid]:
+def _split_header(g: Grid, names: str, what: str) -> tuple[tuple[str, ...] | None, Grid]:
     if not g.rows or names == "no":
         return None, g
     first = g.flat[: g.cols]
     rest = Grid(g.flat[g.cols:], g.rows - 1, g.cols)
     if names == "yes":
-        return tuple(_name_text(v, what, j, ints_are_errors) for j, v in enumerate(first)), rest
+        return tuple(_name_text(v, what, j) for j, v in enumerate(first)), rest
     if all(_is_name(v) for v in first):
         return tuple(" ".join(v.split()) for v in first), rest
     return None, g
@@ -202,11 +216,12 @@ class CleanCells:
 
 
 def clean_cells(value: Any, what: str = "x", *, names: str = "auto",
-                ints_are_errors: bool = True, flat_as_row: bool = False) -> CleanCells:
-    """Turn raw cells into a float block; a text first row is names (``names=auto``)."""
+                flat_as_row: bool = False) -> CleanCells:
+    """Turn raw cells of any shape into a float block; a text first row is names
+    (``names=auto``)."""
     grid = grid_of(value, what, flat_as_row)
-    header, grid = _split_header(grid, names, what, ints_are_errors)
-    arr, codes = _convert(grid.flat, ints_are_errors)
+    header, grid = _split_header(grid, names, what)
+    arr, codes = _convert(grid.flat)
     arr = arr.reshape(grid.rows, grid.cols)
     codes = codes.reshape(grid.rows, grid.cols)
     return CleanCells(arr, codes, header)
@@ -241,19 +256,6 @@ def drops_text(summary: tuple[tuple[str, int], ...]) -> str:
     return f"{total} row{'s' if total != 1 else ''} dropped ({parts})"
 
 
-def xlwings_like(value: Any) -> Any:
-    """A file reader's cell values as xlwings hands them: whole numbers (``int``) become
-    ``float``, so the worksheet functions can be called with them directly."""
-    if isinstance(value, (list, tuple)):
-        return [xlwings_like(v) for v in value]
-    if isinstance(value, int) and not isinstance(value, bool):
-        try:
-            return float(value)
-        except OverflowError:
-            return math.inf
-    return value
-
-
 # --- arguments that are single cells -------------------------------------------------------
 
 MODEL_HELP = ("a degree 1-10 (one x column), 'surface', 'linear', 'interact' or a term "
@@ -271,7 +273,7 @@ def single_value(value: Any, what: str) -> Any:
     return value
 
 
-def model_value(model: Any, *, ints_are_errors: bool = True) -> Any:
+def model_value(model: Any) -> Any:
     """The model cell as the engine takes it: the model text, or its number (an ``int``
     when whole). Only the cell is checked here (one cell, not blank, not an error value);
     whether the value names a model is the engine's rule (``engine.parse_model``)."""
@@ -282,30 +284,29 @@ def model_value(model: Any, *, ints_are_errors: bool = True) -> Any:
         if is_error_text(m):
             raise CellError(f"the model cell holds an error ({m.strip()}); fix that cell")
         return m.strip()
-    if isinstance(m, int) and not isinstance(m, bool):
-        # error cells arrive as negative ints; a positive int is a degree typed in code
-        if ints_are_errors and m < 0:
+    if isinstance(m, (int, np.integer)) and not isinstance(m, (bool, np.bool_)):
+        if is_error_code(m):
             raise CellError("the model cell holds an error value; fix that cell")
-        return m
+        return int(m)
     if isinstance(m, numbers.Real) and not isinstance(m, (bool, np.bool_)):
         v = float(m)
         return int(v) if v.is_integer() else v
     return m  # a boolean, date, ...: the engine says what a model must be
 
 
-def options_value(options: Any, *, ints_are_errors: bool = True) -> Options:
+def options_value(options: Any) -> Options:
     """The options argument (text, blank or an ``Options``) parsed."""
     if isinstance(options, Options):
         return options
     o = single_value(options, "options")
-    if isinstance(o, int) and not isinstance(o, bool) and ints_are_errors:
+    if isinstance(o, int) and not isinstance(o, bool) and is_error_code(o):
         raise CellError("the options cell holds an error value; fix that cell")
     if isinstance(o, str) and is_error_text(o):
         raise CellError(f"the options cell holds an error ({o.strip()}); fix that cell")
     return parse_options(o)
 
 
-def group_key(v: Any, ints_are_errors: bool) -> tuple[Any, bool]:
+def group_key(v: Any) -> tuple[Any, bool]:
     """(key, usable) of one group cell: text, number, boolean or None (blank); dates as
     their serial numbers; error cells are not usable."""
     if v is None:
@@ -317,10 +318,10 @@ def group_key(v: Any, ints_are_errors: bool) -> tuple[Any, bool]:
         return (s if s else None), True
     if isinstance(v, (bool, np.bool_)):
         return bool(v), True
-    if isinstance(v, int):
-        return (None, False) if ints_are_errors else (float(v), True)
+    if isinstance(v, (int, np.integer)):
+        return (None, False) if is_error_code(v) else (float(v), True)
     if isinstance(v, (dt.date, dt.time)):
         return serial_of(v), True
-    if isinstance(v, float):
-        return (v, True) if np.isfinite(v) else (None, not np.isinf(v))
+    if isinstance(v, (float, np.floating)):
+        return (float(v), True) if np.isfinite(v) else (None, not np.isinf(v))
     return str(v), True

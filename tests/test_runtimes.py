@@ -1,0 +1,65 @@
+"""What the xlwings runtimes read from xlbridge.worksheet, checked without any runtime:
+the names `from xlbridge.worksheet import *` brings into a main.py, the signatures their
+decorators accept, no import of xlwings' separately licensed parts, and a light import."""
+
+from __future__ import annotations
+
+import ast
+import inspect
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import xlbridge.worksheet as ws
+
+ROOT = Path(__file__).resolve().parents[1]
+XB = {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREESCAN", "XB_CHECKS",
+      "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"}
+# optional for the worksheet functions: plots, rich output, the fast reader, workbook I/O
+HEAVY = ("matplotlib", "rich", "python_calamine", "openpyxl", "pandas", "scipy.stats",
+         "defusedxml", "xlwings")
+
+
+def test_star_import_brings_exactly_the_worksheet_functions():
+    namespace: dict = {}
+    exec("from xlbridge.worksheet import *", namespace)  # the one line of a main.py
+    assert set(namespace) - {"__builtins__"} == XB == set(ws.FUNCTIONS)
+
+
+def test_signatures_are_ones_every_runtime_registers():
+    for name, f in ws.FUNCTIONS.items():
+        params = inspect.signature(f).parameters.values()
+        # positional parameters only (keyword-only or **kwargs are refused at registration);
+        # optional ones last; no parameter a runtime fills behind the user's back
+        assert all(p.kind is p.POSITIONAL_OR_KEYWORD for p in params), name
+        assert "caller" not in [p.name for p in params], name
+        meta = f.__xlbridge_udf__
+        ranges = {a for a, o in meta["args"].items() if o.get("ndim") == 2}
+        assert ranges == {"y", "x", "new_x", "at_x", "group"} & {p.name for p in params}
+        assert all(o.get("err_to_str") for o in meta["args"].values()), name
+
+
+def test_no_module_imports_xlwings_licensed_parts():
+    found = []
+    for path in [*ROOT.joinpath("xlbridge").rglob("*.py"), *ROOT.joinpath("tests").rglob("*.py")]:
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = []
+            if isinstance(node, ast.Import):
+                names = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and node.module:
+                names = [node.module] + [f"{node.module}.{a.name}" for a in node.names]
+            found += [(path.name, n) for n in names
+                      if n.startswith(("xlwings.pro", "xlwings.server"))]
+    assert found == []
+
+
+def test_importing_the_worksheet_functions_loads_no_optional_library():
+    code = ("import sys, json, xlbridge.worksheet; "
+            "print(json.dumps(sorted(m for m in sys.modules)))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=ROOT, env={"PATH": "", "PYTHONPATH": str(ROOT),
+                                                    "XLBRIDGE_XLWINGS": "auto"})
+    loaded = set(json.loads(out.stdout))
+    assert "xlbridge.worksheet" in loaded and "numpy" in loaded
+    assert sorted(m for m in HEAVY if m in loaded) == []
