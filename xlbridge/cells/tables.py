@@ -26,7 +26,7 @@ from .values import OK, CleanCells, clean_cells, drop_reason, from_array
 __all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "aligned_rows",
            "coef_table", "coefs_cells", "equation_cells", "equation_text", "finish_table",
            "info_cells", "info_table", "new_points", "note_rows", "predict_cells",
-           "predict_table", "stats_cells", "stats_table", "wrap_text"]
+           "predict_table", "split_notes", "stats_cells", "stats_table", "wrap_text"]
 
 MAX_TEXT = 255  # longest string in a multi-cell result
 MAX_CELL_TEXT = 32767  # longest text one spreadsheet cell holds
@@ -89,10 +89,46 @@ def wrap_text(text: str, width: int) -> list[str]:
     return lines or [""]
 
 
+NOTE_MARK = "note: "  # begins the first line of each note row below a table
+STATS_NOTE = "note"  # the statistic column of the statistics table's note rows
+
+
 def note_rows(rows: list[list[Any]], notes: Iterable[str]) -> None:
-    """Append each note as one-cell ``note: ...`` rows below a table."""
+    """Append each note as one-cell ``note: ...`` rows below a table (a long note goes on
+    over more one-cell rows)."""
     for n in notes:
-        rows.extend([line] for line in wrap_text("note: " + n, MAX_TEXT))
+        rows.extend([line] for line in wrap_text(NOTE_MARK + n, MAX_TEXT))
+
+
+def split_notes(table: Table) -> tuple[Table, list[str]]:
+    """``(rows, notes)`` of a table built here: the note rows taken out, each note's text
+    without its mark (the lines of a wrapped note joined again).
+
+    >>> rows = [["a", 1.0]]
+    >>> note_rows(rows, ["two rows left out"])
+    >>> split_notes(finish_table(rows))
+    ([['a', 1.0]], ['two rows left out'])
+    >>> split_notes([["statistic", "value"], ["r2", 0.5], ["note", "log scale"]])
+    ([['statistic', 'value'], ['r2', 0.5]], ['log scale'])
+    """
+    body: Table = []
+    notes: list[str] = []
+    in_note = False
+    for row in table:
+        first = row[0] if row else ""
+        rest_blank = all(v == "" for v in row[1:])
+        if first == STATS_NOTE and len(row) > 1:
+            notes.append(str(next(v for v in reversed(row) if v != "")))
+            in_note = False
+        elif isinstance(first, str) and first.startswith(NOTE_MARK) and rest_blank:
+            notes.append(first[len(NOTE_MARK):])
+            in_note = True
+        elif in_note and isinstance(first, str) and first and rest_blank:
+            notes[-1] += " " + first  # the next line of a wrapped note
+        else:
+            body.append(row)
+            in_note = False
+    return body, notes
 
 
 def _blank_note(blanks: dict[str, str]) -> str | None:
@@ -144,7 +180,7 @@ def stats_table(result: FitResult, options: Options | None = None) -> Table:
     if note:
         notes.append(note)
     for n in notes:
-        rows.extend(["note", line] for line in wrap_text(n, MAX_TEXT))
+        rows.extend([STATS_NOTE, line] for line in wrap_text(n, MAX_TEXT))
     return finish_table(rows)
 
 

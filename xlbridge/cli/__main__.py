@@ -1,0 +1,7 @@
+"""``python -m xlbridge.cli``: the ``xlbridge`` command."""
+
+import sys
+
+from xlbridge.cli import main
+
+sys.exit(main())

@@ -1,0 +1,436 @@
+"""What the commands share: exit codes and the errors that carry them, the shared options,
+reading references from a workbook, and writing output (table, json, csv, an xlsx copy).
+
+Only the standard library is imported here at import time; each helper imports the layer
+it needs when called, because every command is a new process and start-up time counts.
+"""
+
+from __future__ import annotations
+
+import argparse
+import difflib
+import math
+import sys
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, TextIO
+
+__all__ = ["EXIT_OK", "EXIT_FAIL", "EXIT_USAGE", "REF_HELP", "CommandError", "UsageError",
+           "Failure", "Fitted", "Progress", "add_data_options", "add_output_options",
+           "as_failure", "as_usage", "choice", "closest", "csv_text", "emit", "emit_tables",
+           "exit_code", "fit_from_args", "info", "json_text", "message_of", "open_book",
+           "read_points", "read_ref", "render_table", "resolve", "xlsx_copy"]
+
+EXIT_OK, EXIT_FAIL, EXIT_USAGE = 0, 1, 2
+
+
+# --- errors and exit codes --------------------------------------------------------------------
+
+
+class CommandError(Exception):
+    """An error of a command with its exit code; ``__cause__`` is the error it stands for,
+    whose message follows ``context`` in what the user sees."""
+
+    code = EXIT_USAGE
+
+    def __init__(self, message: str = "", context: str = "") -> None:
+        super().__init__(message)
+        self.context = context
+
+
+class UsageError(CommandError):
+    """Bad command line, file or reference: exit 2."""
+
+    code = EXIT_USAGE
+
+
+class Failure(CommandError):
+    """The command ran but the model failed or results drifted: exit 1."""
+
+    code = EXIT_FAIL
+
+
+def _user_errors() -> tuple[type[BaseException], ...]:
+    """The lower layers' exception classes whose message tells a user what to fix."""
+    from xlbridge.book.refs import RefError
+    from xlbridge.book.safety import BookError
+    from xlbridge.cells import CellError, OptionsError
+    from xlbridge.engine import ModelError
+
+    return (BookError, RefError, OptionsError, CellError, ModelError)
+
+
+def exit_code(exc: BaseException) -> int | None:
+    """The exit code for an error a user can act on, by class and kind (never by the words
+    of its message); None for anything else, which is a fault of xlbridge.
+
+    The command's own errors carry their code.  Otherwise: a model the engine cannot fit to
+    these data (too few rows or distinct values, aliased terms, numbers out of scale) exits
+    1; an unusable option, reference, file or cell exits 2."""
+    if isinstance(exc, CommandError):
+        return exc.code
+    if isinstance(exc, MemoryError):
+        return EXIT_FAIL
+    from xlbridge.cells import CellError, CellErrorKind
+    from xlbridge.engine import ModelError, ModelErrorKind
+
+    if isinstance(exc, CellError):
+        return EXIT_FAIL if exc.kind is CellErrorKind.MODEL else EXIT_USAGE
+    if isinstance(exc, ModelError):
+        model_usage = (ModelErrorKind.SPEC, ModelErrorKind.DATA)
+        return EXIT_USAGE if exc.kind in model_usage else EXIT_FAIL
+    from xlbridge.runner.recalc import EvaluationError
+
+    if isinstance(exc, (*_user_errors(), EvaluationError)):
+        return EXIT_USAGE
+    return None
+
+
+def message_of(exc: BaseException) -> str:
+    """One line ``xlbridge: ...`` for the user: for a command's error, the context it
+    added and then its own message or that of the error it stands for."""
+    if isinstance(exc, CommandError):
+        own = str(exc)
+        cause = exc.__cause__
+        text = exc.context + (own if own or cause is None else str(cause))
+    elif isinstance(exc, MemoryError):
+        text = "not enough memory; use fewer rows or a smaller model"
+    else:
+        text = str(exc)
+    return "xlbridge: " + " ".join(text.split())
+
+
+@contextmanager
+def as_usage(context: str = "") -> Iterator[None]:
+    """Errors a user can fix raised in the block become a usage error (exit 2), with
+    ``context`` (e.g. the option and reference) before their message."""
+    try:
+        yield
+    except _user_errors() as exc:
+        raise UsageError(context=context) from exc
+
+
+@contextmanager
+def as_failure() -> Iterator[None]:
+    """Errors raised while running a model on data that read well become a failure
+    (exit 1): the inputs were usable, the model is not."""
+    try:
+        yield
+    except _user_errors() as exc:
+        raise Failure() from exc
+
+
+# --- choices and near misses ------------------------------------------------------------------
+
+
+def closest(word: str, valid: Sequence[str]) -> str | None:
+    """The valid word nearest to ``word`` (difflib's similarity), if any is near."""
+    found = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
+    return found[0] if found else None
+
+
+def unknown_text(what: str, word: str, valid: Sequence[str]) -> str:
+    """``unknown <what> 'word'; did you mean 'x'? <what>s: a, b, c``."""
+    near = closest(word, valid)
+    hint = f"; did you mean {near}?" if near else ""
+    return f"unknown {what} {word}{hint} (valid: {', '.join(valid)})"
+
+
+def choice(valid: Sequence[str], what: str) -> Callable[[str], str]:
+    """An argparse ``type`` that accepts one of ``valid`` and names the nearest otherwise."""
+
+    def check(text: str) -> str:
+        if text in valid:
+            return text
+        raise argparse.ArgumentTypeError(unknown_text(what, repr(text), valid))
+
+    check.__name__ = what
+    return check
+
+
+# --- shared options ---------------------------------------------------------------------------
+
+REF_HELP = (
+    "REF forms: B2:B40, $B$2:$B$40, Data!B2:B40, 'Site data'!B2:B352, whole columns "
+    "Data!B:B (trailing blanks ignored), a defined name, or a table column Sales[Price]"
+)
+
+
+def add_data_options(p: argparse.ArgumentParser, *, model_required: bool = True) -> None:
+    """--y, --x, --model, --options, --sheet, --weights: what to fit."""
+    p.add_argument("book", metavar="BOOK", help="the .xlsx, .xlsm or .csv file (only read)")
+    p.add_argument("--y", required=True, metavar="REF", help="cells of the response")
+    p.add_argument("--x", required=True, metavar="REF", help="cells of the predictor(s)")
+    p.add_argument("--model", required=model_required, metavar="M",
+                   help="degree 1-10, 'surface', 'linear', 'interact', or terms such as "
+                        "'size, size^2'")
+    p.add_argument("--options", default=None, metavar="TEXT",
+                   help="key=value pairs separated by ';' as in the worksheet functions, "
+                        "e.g. 'level=0.9; intercept=no'")
+    p.add_argument("--sheet", default=None, metavar="NAME",
+                   help="sheet for references without one (default: the first sheet)")
+    p.add_argument("--weights", default=None, metavar="REF",
+                   help="cells of positive weights, one per row of y (weighted least squares)")
+
+
+def add_output_options(p: argparse.ArgumentParser, formats: Sequence[str],
+                       default: str = "table") -> None:
+    """--format, --out, --force."""
+    p.add_argument("--format", type=choice(formats, "format"), choices=list(formats),
+                   default=default, help=f"output format (default {default})")
+    p.add_argument("--out", type=Path, default=None, metavar="FILE",
+                   help="write the output to FILE instead of the screen (never the input)")
+    p.add_argument("--force", action="store_true", help="replace FILE if it exists")
+
+
+# --- output -----------------------------------------------------------------------------------
+
+
+def _num(v: Any, digits: int = 10) -> str:
+    if isinstance(v, float):
+        if not math.isfinite(v):
+            return ""
+        return format(v, f".{digits}g")
+    return str(v)
+
+
+def render_table(rows: Sequence[Sequence[Any]], header: bool = True) -> str:
+    """Plain aligned text table (numbers right-aligned)."""
+    if not rows:
+        return ""
+    cells = [[_num(v) for v in r] for r in rows]
+    width = max(len(r) for r in cells)
+    cells = [r + [""] * (width - len(r)) for r in cells]
+    numeric = [all(isinstance(r[j], float) or r[j] == "" for r in rows[1 if header else 0:]
+                   if j < len(r)) for j in range(width)]
+    w = [max(len(r[j]) for r in cells) for j in range(width)]
+    lines = []
+    for i, r in enumerate(cells):
+        parts = [r[j].rjust(w[j]) if numeric[j] and not (header and i == 0) else r[j].ljust(w[j])
+                 for j in range(width)]
+        lines.append("  ".join(parts).rstrip())
+        if header and i == 0:
+            lines.append("  ".join("-" * w[j] for j in range(width)))
+    return "\n".join(lines)
+
+
+def csv_text(tables: Sequence[Sequence[Sequence[Any]]]) -> str:
+    """Tables as CSV (a blank line between), text that could be a formula quoted."""
+    import csv
+    import io
+
+    from xlbridge.book.safety import formula_safe_text
+
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    for k, table in enumerate(tables):
+        if k:
+            w.writerow([])
+        for row in table:
+            w.writerow([repr(v) if isinstance(v, float) else formula_safe_text(v)
+                        for v in row])
+    return buf.getvalue()
+
+
+def json_text(doc: Any) -> str:
+    """Indented JSON; values that are not finite become null."""
+    import json
+
+    return json.dumps(_json_ready(doc), indent=2, allow_nan=False, ensure_ascii=False) + "\n"
+
+
+def _json_ready(v: Any) -> Any:
+    if isinstance(v, float):
+        return v if math.isfinite(v) else None
+    if isinstance(v, dict):
+        return {k: _json_ready(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_json_ready(x) for x in v]
+    return v
+
+
+def emit(text: str, out: Path | None, force: bool, inputs: Sequence[Path] = ()) -> None:
+    """Print, or write atomically to ``out``."""
+    if out is None:
+        sys.stdout.write(text)
+        sys.stdout.flush()
+        return
+    from xlbridge.book.safety import write_atomically
+
+    def write(tmp: Path) -> None:
+        tmp.write_text(text, encoding="utf-8", newline="")
+
+    write_atomically(out, write, force=force, inputs=inputs)
+    info(f"wrote {out}")
+
+
+def info(text: str, stream: TextIO | None = None) -> None:
+    """One line for the user on stderr (or ``stream``)."""
+    print(text, file=stream or sys.stderr)
+
+
+class Progress:
+    """A rich progress bar on a terminal for long runs; nothing otherwise."""
+
+    def __init__(self, what: str) -> None:
+        self.what = what
+        self.bar: Any = None
+        self.task: Any = None
+        self.enabled = sys.stdout.isatty() and sys.stderr.isatty()
+
+    def __call__(self, done: int, total: int, label: str) -> None:
+        if not self.enabled or total < 10:
+            return
+        if self.bar is None:
+            from rich.progress import Progress as Bar
+
+            self.bar = Bar(transient=True)
+            self.bar.start()
+            self.task = self.bar.add_task(self.what, total=total)
+        self.bar.update(self.task, completed=done, description=f"{self.what} {label}")
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.stop()
+
+
+# --- reading the data of a fit ----------------------------------------------------------------
+
+
+def open_book(path: str) -> Any:
+    """The workbook or CSV file at ``path``, opened for reading."""
+    from xlbridge.book.reader import open_book as open_any
+
+    return open_any(path)
+
+
+def resolve(book: Any, refs: Sequence[tuple[str, str]], sheet: str | None) -> list[Any]:
+    """Areas of the (option, REF) pairs, resolved together (whole columns cut alike)."""
+    from xlbridge.book.refs import parse_ref
+
+    parsed = []
+    for what, ref in refs:
+        with as_usage(f"--{what} {ref}: "):
+            parsed.append(parse_ref(ref))
+    return book.resolve_together(parsed, default_sheet=sheet)
+
+
+def read_ref(book: Any, ref: str, what: str, area: Any) -> tuple[Any, Any]:
+    """(area, raw xlwings-shaped value) of a REF, refusing empty areas and unsaved formulas."""
+    from xlbridge.book.reader import missing_value_message
+
+    missing = book.formulas_without_value(area)
+    if missing:
+        raise UsageError(missing_value_message(book.path.name, area.sheet, missing))
+    value = book.xlwings_value(area)
+    flat = value if isinstance(value, list) else [value]
+    if all((v is None) if not isinstance(v, list) else all(c is None for c in v)
+           for v in flat):
+        rows, cols = book.used_extent(area.sheet)
+        where = "is empty" if rows == 0 else (
+            f"has data in rows 1-{rows:,} and columns 1-{cols:,}")
+        raise UsageError(f"--{what} {ref} ({area.label()}) holds no values; sheet "
+                         f"{area.sheet!r} {where}")
+    return area, value
+
+
+@dataclass
+class Fitted:
+    """A fit from the command line: the book, the areas read, the prepared input, the
+    result."""
+
+    book: Any
+    y_area: Any
+    x_area: Any
+    inp: Any
+    result: Any
+
+
+def fit_from_args(args: argparse.Namespace, model: Any = None) -> Fitted:
+    """Read --y/--x/--weights and fit --model (or ``model``): a bad input exits 2, a model
+    that cannot be fitted to data that read well exits 1."""
+    from xlbridge import cells
+
+    book = open_book(args.book)
+    sheet = book.sheet_name(args.sheet) if args.sheet else None
+    refs = [("y", args.y), ("x", args.x)]
+    if getattr(args, "weights", None):
+        refs.append(("weights", args.weights))
+    areas = resolve(book, refs, sheet)
+    y_area, y = read_ref(book, args.y, "y", areas[0])
+    x_area, x = read_ref(book, args.x, "x", areas[1])
+    w = read_ref(book, args.weights, "weights", areas[2])[1] if len(areas) > 2 else None
+    from xlbridge.engine import parse_model
+
+    with as_usage():
+        inp = cells.prepare_fit(y, x, args.model if model is None else model, args.options,
+                                weights=w)
+        # a model text that cannot be read is a usage error, not a failed fit
+        parse_model(inp.model, inp.x.shape[1], inp.names,
+                    intercept=bool(inp.options.fit_kwargs().get("intercept", True)))
+    with as_failure():
+        result = cells.fit_prepared(inp)
+    return Fitted(book, y_area, x_area, inp, result)
+
+
+def read_points(f: Fitted, args: argparse.Namespace, option: str, ref: str
+                ) -> tuple[Any, Any]:
+    """(area, raw value) of the points a fitted model is evaluated at (--new-x, --at-x)."""
+    sheet = f.book.sheet_name(args.sheet) if args.sheet else None
+    (area,) = resolve(f.book, [(option, ref)], sheet)
+    return read_ref(f.book, ref, option, area)
+
+
+def xlsx_copy(book: Any, out: Path | None, force: bool, title: str,
+              blocks: Sequence[tuple[str, Sequence[Sequence[Any]]]]) -> None:
+    """A copy of the workbook with one new sheet of result tables."""
+    from xlbridge.book import writer
+    from xlbridge.book.safety import check_output
+
+    if out is None:
+        raise UsageError("--format xlsx writes a copy of the workbook: give --out FILE.xlsx")
+    src = book.path
+    want = ".xlsx" if src.suffix.lower() == ".csv" else src.suffix.lower()
+    if out.suffix.lower() != want:
+        raise UsageError(f"--out {out.name}: the copy of {src.name} must end in {want}")
+    check_output(out, force=force, inputs=[src])
+    if book.kind == "csv":
+        sheet = book.sheet_names[0]
+        n_rows, n_cols = book.used_extent(sheet)
+        from xlbridge.book.refs import Area
+
+        rows = book.read_area(Area(sheet, 1, 1, max(n_rows, 1), max(n_cols, 1)))
+        wb = writer.new_workbook_from_rows(sheet, rows)
+    else:
+        wb = writer.load_for_copy(src)
+    name = writer.add_result_sheet(wb, title, blocks)
+    writer.save_copy(wb, out, force=force, inputs=[src])
+    info(f"wrote {out} (copy of {src.name} with sheet {name!r})")
+    lost = writer.losses_in(src)
+    if lost:
+        info("note: " + writer.OPENPYXL_LOSSES + " This workbook has: " + ", ".join(lost) + ".")
+
+
+def emit_tables(args: argparse.Namespace, f: Fitted, command: str, table: list[list[Any]],
+                doc: Any, extra: str = "") -> int:
+    """Show one result table (header row first) as table, json, csv or an xlsx copy; on
+    the screen its note rows follow the table as ``note: ...`` lines."""
+    from xlbridge.cells.tables import split_notes
+
+    shown = table if f.inp.options.header else table[1:]
+    src = f"{f.y_area.label()} on {f.x_area.label()}"
+    if args.format == "json":
+        emit(json_text(doc), args.out, args.force, [f.book.path])
+    elif args.format == "csv":
+        emit(csv_text([shown]), args.out, args.force, [f.book.path])
+    elif args.format == "xlsx":
+        xlsx_copy(f.book, args.out, args.force, f"xlbridge {command}",
+                  [(f"xlbridge {command} of {src}{extra}", shown)])
+    else:
+        body, notes = split_notes(table)
+        head = f"xlbridge {command}: {src} in {f.book.path.name}{extra}\n\n"
+        emit(head + render_table(body) + "\n" + "".join(f"note: {n}\n" for n in notes),
+             args.out, args.force, [f.book.path])
+    return EXIT_OK

@@ -1,0 +1,180 @@
+"""Commands over a workbook's XB_ formulas: recalc, pin, verify."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+from pathlib import Path
+from typing import Any
+
+from .common import (
+    EXIT_FAIL,
+    EXIT_OK,
+    Progress,
+    UsageError,
+    choice,
+    emit,
+    info,
+    json_text,
+    open_book,
+)
+
+__all__ = ["configure_recalc", "run_recalc", "configure_pin", "run_pin", "configure_verify",
+           "run_verify"]
+
+SUMMARY_FORMATS = ("table", "json")
+
+
+def configure_recalc(p: argparse.ArgumentParser) -> None:
+    p.add_argument("book", metavar="BOOK", help="the .xlsx or .xlsm workbook (only read)")
+    p.add_argument("--out", type=Path, required=True, metavar="COPY",
+                   help="the copy to write, with the XB_ results as values")
+    p.add_argument("--force", action="store_true", help="replace COPY if it exists")
+    p.add_argument("--format", type=choice(SUMMARY_FORMATS, "format"),
+                   choices=list(SUMMARY_FORMATS), default="table",
+                   help="summary format (default table)")
+
+
+def _cell_rows(evaluation: Any) -> list[dict[str, Any]]:
+    rows = []
+    for x in evaluation.cells:
+        out = x.output_area()
+        rows.append({"cell": x.label, "function": x.function,
+                     "status": "ok" if x.ok else "error",
+                     "range": out.label() if x.ok else x.label,
+                     "message": None if x.ok else x.message})
+    return rows
+
+
+def run_recalc(args: argparse.Namespace) -> int:
+    from xlbridge.book import writer
+    from xlbridge.book.safety import check_output
+    from xlbridge.runner.recalc import evaluate_book
+    from xlbridge.runner.write import write_results
+
+    book = open_book(args.book)
+    src = book.path
+    if book.kind == "csv":
+        raise UsageError(f"{src.name} is a CSV file; recalc needs the .xlsx or .xlsm workbook")
+    if args.out.suffix.lower() != src.suffix.lower():
+        raise UsageError(f"--out {args.out.name}: the copy of {src.name} must end in "
+                         f"{src.suffix.lower()}")
+    check_output(args.out, force=args.force, inputs=[src])
+    wb = writer.load_for_copy(src)
+    progress = Progress("recalc")
+    try:
+        evaluation = evaluate_book(book, wb, progress)
+    finally:
+        progress.close()
+    if not evaluation.cells:
+        info(f"xlbridge: no XB_ formulas found in {src.name}; nothing written")
+        return EXIT_OK
+    report = write_results(evaluation, wb)
+    writer.save_copy(wb, args.out, force=args.force, inputs=[src])
+    failed = evaluation.failed
+    lost = writer.losses_in(src)
+    if args.format == "json":
+        doc = {"book": str(src), "out": str(args.out), "cells_found": len(evaluation.cells),
+               "evaluated": len(evaluation.cells) - len(failed), "errors": len(failed),
+               "cells": _cell_rows(evaluation), "not_kept_by_copy": lost,
+               "note": writer.OPENPYXL_LOSSES}
+        sys.stdout.write(json_text(doc))
+    else:
+        lines = [f"xlbridge recalc: {src.name} -> {args.out}",
+                 f"  XB_ cells found: {len(evaluation.cells)}, evaluated: "
+                 f"{len(evaluation.cells) - len(failed)}, errors: {len(failed)}"]
+        lines += [f"  {x.label} {x.function}: {x.message}" for x in failed]
+        lines.append("  results are written as values in the copy (openpyxl cannot store a "
+                     "formula together with its value)")
+        if report.plain_multi:
+            lines.append(f"  {report.plain_multi} plain formula(s) gave a table: written in "
+                         "full; a spreadsheet program may show only the first value of a "
+                         "plain formula, so enter it as an array formula over its range")
+        lines.append("  note: " + writer.OPENPYXL_LOSSES
+                     + (" This workbook has: " + ", ".join(lost) + "." if lost else ""))
+        print("\n".join(lines))
+    return EXIT_FAIL if failed else EXIT_OK
+
+
+def configure_pin(p: argparse.ArgumentParser) -> None:
+    p.add_argument("book", metavar="BOOK", help="the .xlsx or .xlsm workbook (only read)")
+    p.add_argument("--out", type=Path, required=True, metavar="PINS.json",
+                   help="the pin file to write")
+    p.add_argument("--force", action="store_true", help="replace the pin file if it exists")
+
+
+def _evaluate_for_pins(path: str, what: str) -> Any:
+    from xlbridge.runner.recalc import evaluate_book
+
+    book = open_book(path)
+    progress = Progress(what)
+    try:
+        return evaluate_book(book, None, progress)
+    finally:
+        progress.close()
+
+
+def run_pin(args: argparse.Namespace) -> int:
+    from xlbridge import __version__
+    from xlbridge.book.safety import check_output
+    from xlbridge.runner.pins import pins_document
+
+    check_output(args.out, force=args.force, inputs=[Path(args.book)])
+    evaluation = _evaluate_for_pins(args.book, "pin")
+    if not evaluation.cells:
+        raise UsageError(f"no XB_ formulas found in {Path(args.book).name}; nothing to pin")
+    doc = pins_document(evaluation, __version__)
+    emit(json_text(doc), args.out, args.force, [evaluation.book.path])
+    failed = evaluation.failed
+    print(f"xlbridge pin: {len(evaluation.cells)} XB_ results of {evaluation.book.path.name} "
+          f"pinned to {args.out}" + (f" ({len(failed)} are error messages)" if failed else ""))
+    for x in failed:
+        info(f"  warning: {x.label} {x.function}: {x.message}")
+    return EXIT_OK
+
+
+def configure_verify(p: argparse.ArgumentParser) -> None:
+    p.add_argument("book", metavar="BOOK", help="the .xlsx or .xlsm workbook (only read)")
+    p.add_argument("--pins", type=Path, required=True, metavar="PINS.json",
+                   help="pin file written by xlbridge pin")
+    p.add_argument("--rtol", type=float, default=1e-9,
+                   help="relative tolerance for numbers (default 1e-9)")
+    p.add_argument("--atol", type=float, default=0.0,
+                   help="absolute tolerance for numbers (default 0)")
+    p.add_argument("--format", type=choice(SUMMARY_FORMATS, "format"),
+                   choices=list(SUMMARY_FORMATS), default="table",
+                   help="report format (default table)")
+
+
+def run_verify(args: argparse.Namespace) -> int:
+    from xlbridge.runner.pins import compare, file_sha256, load_pins
+
+    if not (args.rtol >= 0 and math.isfinite(args.rtol)) or not (
+            args.atol >= 0 and math.isfinite(args.atol)):
+        raise UsageError("--rtol and --atol must be finite numbers >= 0")
+    pins = load_pins(args.pins)
+    evaluation = _evaluate_for_pins(args.book, "verify")
+    drift = compare(pins, evaluation, rtol=args.rtol, atol=args.atol)
+    same_file = pins.get("workbook_sha256") == file_sha256(evaluation.book.path)
+    if args.format == "json":
+        doc = {"book": str(evaluation.book.path), "pins": str(args.pins), "ok": drift.ok,
+               "rtol": args.rtol, "atol": args.atol, "cells_checked": drift.cells_checked,
+               "cells_drifted": drift.cells_drifted, "values_checked": drift.values_checked,
+               "workbook_unchanged": same_file, "cells": drift.records,
+               "differences": [ln.strip() for ln in drift.lines]}
+        sys.stdout.write(json_text(doc))
+    else:
+        name = evaluation.book.path.name
+        if drift.ok:
+            print(f"xlbridge verify: {name}: all {drift.cells_checked} pinned XB_ results "
+                  f"hold ({drift.values_checked} values, rtol {args.rtol:g}, atol "
+                  f"{args.atol:g})")
+        else:
+            print(f"xlbridge verify: {name}: {drift.cells_drifted} of {drift.cells_checked} "
+                  f"XB_ results differ from {args.pins.name} (rtol {args.rtol:g}, atol "
+                  f"{args.atol:g})")
+            print("\n".join(drift.lines))
+        if not same_file:
+            print("  (the workbook file differs from the one pinned)")
+    return EXIT_OK if drift.ok else EXIT_FAIL
