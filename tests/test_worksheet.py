@@ -167,7 +167,7 @@ def test_surface_with_a_header_block():
 
 def test_scalar_and_single_cell_arguments_give_messages():
     for result in (ws.XB_COEFS(1.0, 2.0, 1.0), ws.XB_STATS(None, None, None),
-                   ws.XB_PREDICT([1.0, 2.0, 3.5], [1.0, 2.0, 3.0], 1.0, [[1.0, 2.0]]),
+                   ws.XB_PREDICT([1.0, 2.0, 3.5], [1.0, 2.0, 3.0], 1.0, [[1.0, 2.0], [3.0, 4.0]]),
                    ws.XB_EQUATION([1.0, 2.0], [1.0, 2.0, 3.0], 1.0)):
         assert len(result) == 1 and len(result[0]) == 1
         assert result[0][0].startswith("xlbridge: ")

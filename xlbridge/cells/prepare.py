@@ -71,7 +71,9 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     if y_grid.cols > 1:
         raise CellError(f"y must be one column (or one row); got {y_grid.rows} rows x "
                         f"{y_grid.cols} columns", SHAPE)
-    x_grid = grid_of(x, "x")
+    # a flat x is one predictor column, except beside a single y value: then it was one row
+    # (one observation of several predictors), the only way a runtime flattens such an x
+    x_grid = grid_of(x, "x", flat_as_row=y_grid.rows == 1)
     if x_grid.rows == 1 and x_grid.cols == y_grid.rows > 1:
         x_grid = x_grid.transposed_line()  # a row of x values beside a row of y values
     yc = clean_cells(y_grid, "y", names=opts.names)

@@ -21,7 +21,7 @@ from ..engine import FitResult
 from .errors import Cell, CellError, CellErrorKind, Table, clip_text
 from .options import Options
 from .prepare import fit_cells
-from .values import OK, CleanCells, clean_cells, drop_reason, from_array
+from .values import OK, CleanCells, clean_cells, drop_reason, from_array, grid_of
 
 __all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "aligned_rows",
            "coef_table", "coefs_cells", "equation_cells", "equation_text", "finish_table",
@@ -215,7 +215,10 @@ def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
                                 f"model has {k} predictors ({', '.join(predictors)}); "
                                 "give one row per point, one column per predictor", SHAPE)
             flat_as_row = True
-    block = clean_cells(raw, what, names=opts.names, flat_as_row=flat_as_row)
+    grid = grid_of(raw, what, flat_as_row)
+    if k == 1:
+        grid = grid.transposed_line()  # a row of points for one predictor, as a flat list
+    block = clean_cells(grid, what, names=opts.names)
     if block.n_rows == 0:
         raise CellError(f"{what} has no rows; select the x values to evaluate at", SHAPE)
     if block.n_cols != k:

@@ -9,8 +9,10 @@ these shapes, and the same cells give the same numbers whatever the shape:
   dropped. For y, x, weights and group it is one column (a row of y is the same values).
   For new_x / at_x it is a column of points when the model has one predictor and one point
   (one row) when it has k > 1 predictors and the list holds exactly k values; any other
-  length is refused (``tables.new_points``). A flat x is always one predictor column: a
-  single row of k predictors would be one observation, which no model can be fitted to;
+  length is refused (``tables.new_points``). A flat x is one predictor column, except
+  beside a single y value, where it is that observation's row of predictors
+  (``prepare.prepare_fit``; no model can be fitted to one row, but the message is then the
+  same as for the block);
 - a scalar: one cell.
 
 Cell values (see ``clean_cells``): numbers are ``float`` or ``int`` (the runtimes in the
