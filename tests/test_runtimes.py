@@ -16,9 +16,11 @@ import xlbridge.worksheet as ws
 ROOT = Path(__file__).resolve().parents[1]
 XB = {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREESCAN", "XB_CHECKS",
       "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"}
-# optional for the worksheet functions: plots, rich output, the fast reader, workbook I/O
-HEAVY = ("matplotlib", "rich", "python_calamine", "openpyxl", "pandas", "scipy.stats",
-         "defusedxml", "xlwings")
+# never needed by the worksheet functions: plots, rich output, the fast reader, workbook I/O
+HEAVY = ("matplotlib", "rich", "python_calamine", "openpyxl", "pandas", "defusedxml",
+         "xlwings")
+# needed by some calls only (p-values, normality check), so loaded on first use
+LAZY = ("scipy", "scipy.stats", "scipy.special")
 
 
 def test_star_import_brings_exactly_the_worksheet_functions():
@@ -62,4 +64,35 @@ def test_importing_the_worksheet_functions_loads_no_optional_library():
                                                     "XLBRIDGE_XLWINGS": "auto"})
     loaded = set(json.loads(out.stdout))
     assert "xlbridge.worksheet" in loaded and "numpy" in loaded
+    assert sorted(m for m in HEAVY + LAZY if m in loaded) == []
+
+
+CALL_ALL = """
+import json, sys
+import xlbridge.worksheet as ws
+x = list(range(1, 21)); y = [3 + 2 * v - 0.05 * v * v + (v * 7 % 5) / 10 for v in x]
+xx = [[a, a * 3 % 7] for a in x]
+calls = {"XB_COEFS": (y, x, 2), "XB_STATS": (y, x, 2), "XB_PREDICT": (y, x, 2, [3, 4]),
+         "XB_EQUATION": (y, x, 2), "XB_DEGREESCAN": (y, x, 4), "XB_CHECKS": (y, xx, "surface"),
+         "XB_ROWDIAG": (y, x, 2), "XB_OPTIMUM": (y, x, 2), "XB_MARGINAL": (y, x, 2, [3]),
+         "XB_PLOT": (y, x, 2, "curve"), "XB_GROUPS": (["a", "b"] * 10, y, x, 1),
+         "XB_VERSIONS": ()}
+first = {name: ws.FUNCTIONS[name](*args)[0][0] for name, args in calls.items()}
+print(json.dumps({"first": first, "modules": sorted(sys.modules)}))
+"""
+
+
+def test_calling_every_function_loads_no_optional_library():
+    """The worksheet path needs numpy and scipy only; plots, rich output, the fast reader
+    and workbook I/O stay unloaded (XB_PLOT outside the classic add-in builds no figure).
+    scipy.stats is loaded by XB_CHECKS (the normality test), when it runs."""
+    out = subprocess.run([sys.executable, "-c", CALL_ALL], capture_output=True, text=True,
+                         check=True, cwd=ROOT, env={"PATH": "", "PYTHONPATH": str(ROOT),
+                                                    "XLBRIDGE_XLWINGS": "auto"})
+    doc = json.loads(out.stdout)
+    assert set(doc["first"]) == XB
+    # each call gave its table (XB_PLOT: the message saying how to get the figure)
+    assert all(not v.startswith("xlbridge:") for k, v in doc["first"].items() if k != "XB_PLOT")
+    assert "xlbridge plot" in doc["first"]["XB_PLOT"]
+    loaded = set(doc["modules"])
     assert sorted(m for m in HEAVY if m in loaded) == []
