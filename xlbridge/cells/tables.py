@@ -6,7 +6,6 @@ value that does not exist is ``""`` and a note says why), text at most 255 chara
 
 from __future__ import annotations
 
-import importlib.metadata
 import math
 import numbers
 import platform
@@ -278,6 +277,8 @@ def equation_text(result: FitResult, options: Options | None = None) -> Table:
 
 
 def _version(dist: str) -> str:
+    import importlib.metadata  # ~40 ms; only XB_VERSIONS needs it, not every workbook load
+
     try:
         return importlib.metadata.version(dist)
     except importlib.metadata.PackageNotFoundError:
