@@ -178,6 +178,8 @@ def test_plot_without_a_caller_says_how_to_get_the_figure():
     ((msg,),) = ws.XB_PLOT(Y, X, 2.0, "residuals")
     assert msg.startswith("xlbridge: ") and "xlbridge plot" in msg and "--kind residuals" in msg
     assert "xlbridge report" in msg
+    ((scan,),) = ws.XB_PLOT(Y, X, 4, "degrees")
+    assert "--kind degrees --max-degree 4 " in scan
     # bad input is reported first, the same way as in every other function
     bad = ws.XB_PLOT(Y, X, 2.0, "pie")
     assert bad[0][0].startswith("xlbridge: kind must be one of")

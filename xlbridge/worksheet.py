@@ -245,12 +245,15 @@ def plot_cells(y: Any, x: Any, model: Any, kind: Any, options: Any = None,
 def _plot_or_explain(y: Any, x: Any, model: Any, kind: Any, options: Any,
                      caller: Any) -> Table:
     if caller is None:
-        k = cells.plot_input(y, x, model, kind, options).kind  # bad input says so first
+        p = cells.plot_input(y, x, model, kind, options)  # bad input says so first
+        k = p.kind
+        fit = (f"--model 1 --kind degrees --max-degree {p.top:g}" if k == "degrees"
+               else f"--model M --kind {k}")
         raise CellError(
             f"the {k} figure cannot be placed from this cell: only the classic Windows "
             "add-in places pictures. Get it on the command line: xlbridge plot BOOK --y REF "
-            f"--x REF --model M --kind {k} --out FOLDER (or xlbridge report BOOK --y REF "
-            "--x REF --model M --out report.html)", CellErrorKind.RESULT)
+            f"--x REF {fit} --out FOLDER (or xlbridge report BOOK --y REF --x REF --model M "
+            "--out report.html)", CellErrorKind.RESULT)
     fig = cells.plot_figure(y, x, model, kind, options)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
