@@ -31,7 +31,7 @@ from xlbridge.book.refs import (
     quote_sheet,
 )
 from xlbridge.book.safety import check_output, formula_safe_text, write_atomically
-from xlbridge.book.writer import losses_in, set_value
+from xlbridge.book.writer import set_value
 
 from .bookfactory import build_book, invented_cost_data, with_cached_values
 
@@ -310,21 +310,6 @@ def test_formula_looking_text_is_kept_as_text(tmp_path: Path) -> None:
     cells = [back.active.cell(i, 1) for i in range(1, 6)]
     assert [c.data_type for c in cells] == ["s"] * 5
     assert cells[0].value == "=HYPERLINK(\"http://x\")"
-
-
-def test_losses_are_listed_for_charts(tmp_path: Path) -> None:
-    from openpyxl.chart import BarChart, Reference
-
-    wb = openpyxl.Workbook()
-    ws = wb.active
-    for i in range(1, 5):
-        ws.append([i])
-    chart = BarChart()
-    chart.add_data(Reference(ws, min_col=1, min_row=1, max_row=4))
-    ws.add_chart(chart, "C1")
-    wb.save(tmp_path / "c.xlsx")
-    lost = losses_in(tmp_path / "c.xlsx")
-    assert "1 chart" in lost
 
 
 # --- CSV ----------------------------------------------------------------------------------------

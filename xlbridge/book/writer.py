@@ -1,7 +1,7 @@
-"""Write copies of workbooks with openpyxl: results as values, text always as text.
+"""New workbooks written with openpyxl: the .xlsx copy of a CSV file, text always as text.
 
-openpyxl re-saves only what it understands, so the runner never writes to its input; see
-:data:`OPENPYXL_LOSSES` for what a copy does not keep.
+Copies of .xlsx/.xlsm workbooks are not written here but patched part by part
+(:mod:`xlbridge.book.patch`), so that they keep every part openpyxl would drop.
 """
 
 from __future__ import annotations
@@ -12,87 +12,16 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-from xlbridge.book.safety import BookError, check_archive, safe_openpyxl, write_atomically
+from xlbridge.book.safety import BookError, safe_openpyxl, write_atomically
 
 __all__ = [
-    "OPENPYXL_LOSSES",
     "add_result_sheet",
-    "load_for_copy",
-    "losses_in",
     "new_workbook_from_rows",
     "save_copy",
     "set_value",
     "unique_sheet_title",
+    "unique_title",
 ]
-
-OPENPYXL_LOSSES = (
-    "openpyxl, which writes the copy, does not keep charts, images, shapes and text boxes, "
-    "form controls, slicers, timelines, sparklines, threaded comments or the data model, "
-    "and may drop some formatting (conditional-format extensions, custom views); formulas "
-    "keep their text but lose their saved values. The input file is never changed."
-)
-
-# Parts of the archive that a copy written by openpyxl loses: (path prefix, description).
-_LOST_PARTS = (
-    ("xl/charts/chart", "chart"),
-    ("xl/media/", "image or media file"),
-    ("xl/drawings/vmlDrawing", None),  # comment boxes: kept by openpyxl
-    ("xl/drawings/drawing", "drawing (shapes, text boxes, pictures)"),
-    ("xl/slicers/", "slicer"),
-    ("xl/timelines/", "timeline"),
-    ("xl/threadedComments/", "threaded comment part"),
-    ("xl/ctrlProps/", "form control"),
-    ("xl/model/", "data model part"),
-    ("xl/webextensions/", "web extension"),
-)
-
-
-def losses_in(path: Path) -> list[str]:
-    """What a copy of this workbook written by openpyxl will not keep, e.g. ``2 charts``."""
-    if path.suffix.lower() == ".csv":
-        return []
-    counts: dict[str, int] = {}
-    try:
-        with zipfile.ZipFile(path) as zf:
-            names = zf.namelist()
-            sparklines = any(
-                b"sparklineGroup" in zf.read(n)
-                for n in names
-                if n.startswith("xl/worksheets/sheet") and n.endswith(".xml")
-                and zf.getinfo(n).file_size < 50 * 1024**2
-            )
-    except (OSError, zipfile.BadZipFile):
-        return []
-    for name in names:
-        for prefix, what in _LOST_PARTS:
-            if name.startswith(prefix) and not name.endswith(".rels"):
-                if what:
-                    counts[what] = counts.get(what, 0) + 1
-                break
-    out = [f"{n} {what}{'s' if n != 1 and not what.endswith('part') else ''}"
-           for what, n in counts.items()]
-    if sparklines:
-        out.append("sparklines")
-    return out
-
-
-def load_for_copy(path: Path) -> Any:
-    """openpyxl workbook of an .xlsx/.xlsm input (formulas, not values), for a copy."""
-    check_archive(path)
-    openpyxl = safe_openpyxl()
-    import warnings
-
-    try:
-        with warnings.catch_warnings():
-            # openpyxl warns about every extension it drops; losses_in() reports them once
-            warnings.simplefilter("ignore")
-            return openpyxl.load_workbook(
-                path, keep_vba=path.suffix.lower() == ".xlsm", keep_links=True,
-                data_only=False, rich_text=False,
-            )
-    except Exception as exc:  # openpyxl raises many types for damaged files
-        raise BookError(f"{path.name} cannot be opened for writing a copy: {exc}") from None
-
 
 def new_workbook_from_rows(sheet: str, rows: Iterable[Sequence[Any]]) -> Any:
     """A new workbook holding CSV rows (the copy of a .csv input)."""
@@ -132,10 +61,18 @@ _BAD_TITLE = set("[]:*?/\\")
 
 
 def unique_sheet_title(wb: Any, wanted: str, replace_active: bool = False) -> str:
-    title = "".join("_" if ch in _BAD_TITLE else ch for ch in wanted)[:31].strip("'") or "sheet"
-    existing = {ws.title.casefold() for ws in wb.worksheets}
+    """A title for a new sheet of the openpyxl workbook ``wb`` (see :func:`unique_title`)."""
+    existing = [ws.title for ws in wb.worksheets]
     if replace_active:
-        existing.discard(wb.active.title.casefold())
+        existing.remove(wb.active.title)
+    return unique_title(existing, wanted)
+
+
+def unique_title(existing: Iterable[str], wanted: str) -> str:
+    """``wanted`` as a valid sheet title (31 characters, no []:*?/\\) that differs, in
+    any case, from the ``existing`` titles; ``(2)``, ``(3)``... are added if needed."""
+    title = "".join("_" if ch in _BAD_TITLE else ch for ch in wanted)[:31].strip("'") or "sheet"
+    existing = {t.casefold() for t in existing}
     if title.casefold() not in existing:
         return title
     for i in range(2, 1000):

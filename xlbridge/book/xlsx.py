@@ -19,7 +19,7 @@ from xlbridge.book.refs import Area, RefError, col_number, parse_ref
 from xlbridge.book.safety import BookError, check_archive
 from xlbridge.book.workbook import Book, SheetData, Structure, TableInfo
 
-__all__ = ["XlsxBook"]
+__all__ = ["XlsxBook", "part_relations", "read_structure", "workbook_part"]
 
 
 # --- targeted XML scans of a sheet part --------------------------------------------------
@@ -97,7 +97,7 @@ def _parse_xml(data: bytes) -> Any:
                              forbid_external=True)
 
 
-def _rels(zf: zipfile.ZipFile, part: str) -> dict[str, tuple[str, str]]:
+def part_relations(zf: zipfile.ZipFile, part: str) -> dict[str, tuple[str, str]]:
     """Relationship id -> (type suffix, absolute part name) for ``part``."""
     p = PurePosixPath(part)
     rels_name = str(p.parent / "_rels" / (p.name + ".rels")) if part else "_rels/.rels"
@@ -127,16 +127,21 @@ def _rels(zf: zipfile.ZipFile, part: str) -> dict[str, tuple[str, str]]:
     return out
 
 
-def _read_structure(zf: zipfile.ZipFile, book_name: str) -> Structure:
+def workbook_part(zf: zipfile.ZipFile) -> str:
+    """The name of the workbook part (``xl/workbook.xml`` as usually written)."""
+    office = [t for typ, t in part_relations(zf, "").values() if typ == "officeDocument"]
+    return office[0] if office else "xl/workbook.xml"
+
+
+def read_structure(zf: zipfile.ZipFile, book_name: str) -> Structure:
     try:
-        office = [t for typ, t in _rels(zf, "").values() if typ == "officeDocument"]
-        wb_part = office[0] if office else "xl/workbook.xml"
+        wb_part = workbook_part(zf)
         root = _parse_xml(zf.read(wb_part))
     except KeyError:
         raise BookError(f"{book_name} has no workbook part; it is not a workbook") from None
     except Exception as exc:  # defusedxml / ParseError: a damaged or hostile part
         raise BookError(f"{book_name}: the workbook part cannot be read ({exc})") from None
-    wb_rels = _rels(zf, wb_part)
+    wb_rels = part_relations(zf, wb_part)
     sheets: list[str] = []
     sheet_parts: dict[str, str] = {}
     names: dict[tuple[str | None, str], str] = {}
@@ -162,7 +167,7 @@ def _read_structure(zf: zipfile.ZipFile, book_name: str) -> Structure:
         spelling[name.casefold()] = name
     tables: dict[str, TableInfo] = {}
     for sheet, part in sheet_parts.items():
-        for typ, tpart in _rels(zf, part).values():
+        for typ, tpart in part_relations(zf, part).values():
             if typ != "table":
                 continue
             try:
@@ -192,7 +197,7 @@ class XlsxBook(Book):
         check_archive(path)
         try:
             with zipfile.ZipFile(path) as zf:
-                structure = _read_structure(zf, path.name)
+                structure = read_structure(zf, path.name)
         except zipfile.BadZipFile as exc:
             raise BookError(f"{path.name} is a damaged workbook archive: {exc}") from None
         import python_calamine as pc
