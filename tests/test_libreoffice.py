@@ -1,10 +1,12 @@
 """A real spreadsheet program opens what we ship and what the runner writes.
 
 LibreOffice Calc, run headless, converts every sheet of each bundled template and of the
-runner's copies (`xlbridge recalc`, `xlbridge fit --format xlsx`) to CSV. The checks:
+runner's copies (`xlbridge recalc`, `recalc --values`, `xlbridge fit --format xlsx`) to CSV.
+The checks:
 
-- in the recalc copy every cell, the XB_ results included, shows the value xlbridge wrote
-  (openpyxl reads it back from the copy; numbers to 12 significant digits);
+- in the `--values` copy every cell, the XB_ results included, shows the value xlbridge
+  wrote (openpyxl reads it back from the copy; numbers to 12 significant digits);
+- the live copy keeps its XB_ formulas, and its other cells show as before;
 - in every book, no cell outside an XB_ formula shows an error unless its saved value was
   that error already;
 - the templates as shipped hold live XB_ formulas without saved values: LibreOffice does not
@@ -226,15 +228,16 @@ def test_template_as_shipped_opens_without_new_errors(template: Path, tmp_path: 
 
 
 @pytest.mark.parametrize("template", TEMPLATES, ids=lambda p: p.name)
-def test_recalc_copy_shows_our_values(template: Path, tmp_path: Path, record_property) -> None:
+def test_recalc_values_copy_shows_our_values(template: Path, tmp_path: Path,
+                                             record_property) -> None:
     copy = tmp_path / f"{template.stem}-calculated.xlsx"
-    proc = run_process(["recalc", template, "--out", copy])
+    proc = run_process(["recalc", template, "--out", copy, "--values"])
     assert proc.returncode == 0, proc.stderr + proc.stdout
     wb = openpyxl.load_workbook(template)
     formulas = xb_formulas(wb)
     wb.close()
     wb = openpyxl.load_workbook(copy)
-    assert not xb_formulas(wb), "recalc left an XB_ formula in the copy"
+    assert not xb_formulas(wb), "recalc --values left an XB_ formula in the copy"
     written = values(wb)
     wb.close()
     missing = [anchor for anchor in formulas if anchor not in written]
@@ -242,9 +245,29 @@ def test_recalc_copy_shows_our_values(template: Path, tmp_path: Path, record_pro
     xb_results = set().union(*formulas.values())
     grids = convert_to_csv(copy, tmp_path / "csv", tmp_path / "profile")
     found = check_book(copy, template, grids, xb_results)
-    report(record_property, "recalc", found)
+    report(record_property, "recalc_values", found)
     assert not found.problems, problems_text(found)
     assert found.xb_compared_numbers >= 10, "too few XB_ result numbers were compared"
+
+
+@pytest.mark.parametrize("template", TEMPLATES, ids=lambda p: p.name)
+def test_recalc_live_copy_opens(template: Path, tmp_path: Path, record_property) -> None:
+    """The live copy keeps its XB_ formulas (LibreOffice recalculates array formulas and
+    shows what it can without the add-in: recorded); every other cell shows as before."""
+    copy = tmp_path / f"{template.stem}-live.xlsx"
+    proc = run_process(["recalc", template, "--out", copy])
+    assert proc.returncode == 0, proc.stderr + proc.stdout
+    wb = openpyxl.load_workbook(template)
+    anchors = set(xb_formulas(wb))
+    wb.close()
+    wb = openpyxl.load_workbook(copy)
+    assert set(xb_formulas(wb)) == anchors, "the live copy lost or gained an XB_ formula"
+    wb.close()
+    grids = convert_to_csv(copy, tmp_path / "csv", tmp_path / "profile")
+    found = check_book(copy, template, grids)
+    report(record_property, "recalc_live", found)
+    assert not found.problems, problems_text(found)
+    assert found.xb_shown
 
 
 @pytest.mark.parametrize("template", TEMPLATES, ids=lambda p: p.name)

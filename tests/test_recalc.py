@@ -187,7 +187,7 @@ def test_recalc_fills_the_values_the_functions_give(tmp_path: Path, capsys) -> N
     src = _model_book(tmp_path)
     before = sha256(src)
     out = tmp_path / "copy.xlsx"
-    code, text, err = run(["recalc", src, "--out", out], capsys)
+    code, text, err = run(["recalc", src, "--out", out, "--values"], capsys)
     assert code == 0, text + err
     assert sha256(src) == before
     assert "XB_ cells found: 5, evaluated: 5, errors: 0" in text
@@ -209,6 +209,23 @@ def test_recalc_fills_the_values_the_functions_give(tmp_path: Path, capsys) -> N
     assert [r[0] for r in _region(out, "Site data", "A1:A41")] == x
     wb = openpyxl.load_workbook(out)
     assert wb["Model"]["A20"].data_type != "f"  # values, no formula left behind
+
+    # the live copy: the formulas stay, the array range fits the table, plain formulas
+    # hold their first value (what a spreadsheet program shows of a plain formula)
+    live = tmp_path / "live.xlsx"
+    code, text, err = run(["recalc", src, "--out", live], capsys)
+    assert code == 0, text + err
+    assert "3 plain formula(s) give a table" in text
+    assert _region(live, "Model", "A20:I23") == _cells(coefs)
+    assert _region(live, "Model", "A24:I24") == [[""] * 9]
+    assert _region(live, "Model", "A1:B2") == [[p1[0][0], ""], ["", ""]]
+    assert _region(live, "Model", "L1") == eq
+    wb = openpyxl.load_workbook(live)
+    array = wb["Model"]["A20"].value
+    assert isinstance(array, ArrayFormula) and array.ref == "A20:I23"
+    assert array.text == f"=XB_COEFS({D}!B1:B41,{D}!A1:A41,2)"
+    assert wb["Model"]["A30"].value == f"=XB_STATS({D}!B:B,{D}!A:A,2,\"level=0.9\")"
+    assert openpyxl.load_workbook(live, data_only=True)["Model"]["A30"].value == stats[0][0]
 
 
 def test_evaluate_without_writing_reads_formulas_read_only(tmp_path: Path) -> None:
@@ -236,7 +253,7 @@ def test_messages_instead_of_numbers(tmp_path: Path, capsys) -> None:
     src = cost_book(tmp_path / "bad.xlsx", formulas=formulas,
                     extra_sheets={"Model": [[None]] * 30 + [[None, None], [None, "in the way"]]})
     out = tmp_path / "bad-copy.xlsx"
-    code, text, err = run(["recalc", src, "--out", out], capsys)
+    code, text, err = run(["recalc", src, "--out", out, "--values"], capsys)
     assert code == 1, err
     got = {row[0]: row for row in [line.strip().split(" ", 2) for line in text.splitlines()]
            if row[0].startswith("Model!")}
@@ -338,16 +355,38 @@ def test_spill_references(tmp_path: Path) -> None:
 def test_results_that_would_overlap(tmp_path: Path) -> None:
     """B5's table (B5:J8) and A6's statistics (A6:B27) cross at B6:B8: the second one
     written gets a message, the first keeps its values."""
-    from xlbridge.book.writer import load_for_copy
-    from xlbridge.runner.write import write_results
+    from xlbridge.runner.write import plan_results
 
     src = cost_book(tmp_path / "o.xlsx", formulas={"Model": {
         "B5": f"=XB_COEFS({D}!B:B,{D}!A:A,2)", "A6": f"=XB_STATS({D}!B:B,{D}!A:A,2)"}})
-    wb = load_for_copy(src)
-    ev = evaluate_book(open_book(src), wb)
-    write_results(ev, wb)
+    ev = evaluate_book(open_book(src))
+    edits, report = plan_results(ev, values=True)
     cells = {c.label: c for c in ev.cells}
     assert cells["Model!B5"].ok
     assert "overlaps the result of Model!B5" in cells["Model!A6"].message
-    assert str(wb["Model"]["A6"].value).startswith("xlbridge: ")
-    assert wb["Model"]["B6"].value == "intercept"
+    assert str(edits["Model"][(6, 1)].value).startswith("xlbridge: ")
+    assert edits["Model"][(6, 2)].value == "intercept"
+    assert report.conflicts and report.written == 1
+
+
+def test_each_range_is_read_once_and_fitted_once(tmp_path: Path) -> None:
+    """Five formulas over the same y and x: two reads of the book, one fit in the cache,
+    and every result still equals the function called on its own."""
+    from xlbridge.cells.cache import FIT_CACHE
+
+    y, x = f"{D}!B1:B41", f"{D}!A1:A41"
+    formulas = {"Model": {"A1": ArrayFormula("A1:I4", f"=XB_COEFS({y},{x},2)"),
+                          "A10": f"=XB_STATS({y},{x},2)",
+                          "D10": f"=XB_EQUATION({y},{x},2)",
+                          "F10": f"=XB_COEFS({y},{x},2)",
+                          "H10": f"=XB_CHECKS({y},{x},2)"}}
+    src = cost_book(tmp_path / "shared.xlsx", formulas=formulas)
+    FIT_CACHE.clear()
+    ev = evaluate_book(open_book(src))
+    assert all(c.ok for c in ev.cells)
+    assert ev.reads == 2
+    assert FIT_CACHE.misses == 1 and FIT_CACHE.hits >= 4
+    yv, xv = _data()
+    got = {c.label: c.result for c in ev.cells}
+    assert got["Model!A1"] == worksheet.XB_COEFS(yv, xv, 2.0)
+    assert got["Model!H10"] == worksheet.XB_CHECKS(yv, xv, 2.0)

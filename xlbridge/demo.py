@@ -47,13 +47,12 @@ def _prepare(out: Path, force: bool) -> None:
 def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     """Run the demo into folder ``out``; returns the summary text."""
     from . import cells, worksheet
-    from .book import writer
     from .book.reader import open_book
     from .cells import models as model_cells
     from .plots import write_figures
     from .report import Source, write_report
     from .runner.recalc import evaluate_book
-    from .runner.write import write_results
+    from .runner.write import write_copy
 
     start = time.perf_counter()
     out = Path(out)
@@ -66,13 +65,11 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
                                          / name) as src:
             shutil.copyfile(src, template)
         book = open_book(template)
-        wb = writer.load_for_copy(template)
         captured: dict = {}
         functions = _capturing(worksheet.FUNCTIONS, ("XB_COEFS", "XB_DEGREESCAN"), captured)
-        evaluation = evaluate_book(book, wb, functions=functions)
-        write_results(evaluation, wb)
+        evaluation = evaluate_book(book, functions=functions)
         calculated = out / f"{stem}-calculated.xlsx"
-        writer.save_copy(wb, calculated, force=True, inputs=[template])
+        write_copy(evaluation, calculated, values=True, force=True)
         res, _ = cells.fit_cells(*captured["XB_COEFS"])
         scan = None
         if "XB_DEGREESCAN" in captured:

@@ -385,8 +385,8 @@ def read_points(f: Fitted, args: argparse.Namespace, option: str, ref: str
 
 def xlsx_copy(book: Any, out: Path | None, force: bool, title: str,
               blocks: Sequence[tuple[str, Sequence[Sequence[Any]]]]) -> None:
-    """A copy of the workbook with one new sheet of result tables."""
-    from xlbridge.book import writer
+    """A copy of the workbook with one new sheet of result tables (every other part of an
+    .xlsx/.xlsm input copied unchanged; a CSV input becomes a new workbook)."""
     from xlbridge.book.safety import check_output
 
     if out is None:
@@ -397,20 +397,24 @@ def xlsx_copy(book: Any, out: Path | None, force: bool, title: str,
         raise UsageError(f"--out {out.name}: the copy of {src.name} must end in {want}")
     check_output(out, force=force, inputs=[src])
     if book.kind == "csv":
-        sheet = book.sheet_names[0]
-        n_rows, n_cols = book.used_extent(sheet)
+        from xlbridge.book import writer
         from xlbridge.book.refs import Area
 
+        sheet = book.sheet_names[0]
+        n_rows, n_cols = book.used_extent(sheet)
         rows = book.read_area(Area(sheet, 1, 1, max(n_rows, 1), max(n_cols, 1)))
         wb = writer.new_workbook_from_rows(sheet, rows)
+        name = writer.add_result_sheet(wb, title, blocks)
+        writer.save_copy(wb, out, force=force, inputs=[src])
     else:
-        wb = writer.load_for_copy(src)
-    name = writer.add_result_sheet(wb, title, blocks)
-    writer.save_copy(wb, out, force=force, inputs=[src])
+        from xlbridge.book.patch import NewSheet, patch_copy
+
+        lines: list[Sequence[Any]] = []
+        for caption, table in blocks:
+            lines += ([[caption]] if caption else []) + list(table) + [[]]
+        name = patch_copy(src, out, {}, force=force,
+                          new_sheet=NewSheet(title, lines)).sheet_title
     info(f"wrote {out} (copy of {src.name} with sheet {name!r})")
-    lost = writer.losses_in(src)
-    if lost:
-        info("note: " + writer.OPENPYXL_LOSSES + " This workbook has: " + ", ".join(lost) + ".")
 
 
 def emit_tables(args: argparse.Namespace, f: Fitted, command: str, table: list[list[Any]],

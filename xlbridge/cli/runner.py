@@ -29,7 +29,10 @@ SUMMARY_FORMATS = ("table", "json")
 def configure_recalc(p: argparse.ArgumentParser) -> None:
     p.add_argument("book", metavar="BOOK", help="the .xlsx or .xlsm workbook (only read)")
     p.add_argument("--out", type=Path, required=True, metavar="COPY",
-                   help="the copy to write, with the XB_ results as values")
+                   help="the copy to write: the XB_ formulas with their results saved")
+    p.add_argument("--values", action="store_true",
+                   help="replace the XB_ formulas by their results (for readers without "
+                        "the add-in)")
     p.add_argument("--force", action="store_true", help="replace COPY if it exists")
     p.add_argument("--format", type=choice(SUMMARY_FORMATS, "format"),
                    choices=list(SUMMARY_FORMATS), default="table",
@@ -48,10 +51,9 @@ def _cell_rows(evaluation: Any) -> list[dict[str, Any]]:
 
 
 def run_recalc(args: argparse.Namespace) -> int:
-    from xlbridge.book import writer
     from xlbridge.book.safety import check_output
     from xlbridge.runner.recalc import evaluate_book
-    from xlbridge.runner.write import write_results
+    from xlbridge.runner.write import write_copy
 
     book = open_book(args.book)
     src = book.path
@@ -61,38 +63,35 @@ def run_recalc(args: argparse.Namespace) -> int:
         raise UsageError(f"--out {args.out.name}: the copy of {src.name} must end in "
                          f"{src.suffix.lower()}")
     check_output(args.out, force=args.force, inputs=[src])
-    wb = writer.load_for_copy(src)
     progress = Progress("recalc")
     try:
-        evaluation = evaluate_book(book, wb, progress)
+        evaluation = evaluate_book(book, None, progress)
     finally:
         progress.close()
     if not evaluation.cells:
         info(f"xlbridge: no XB_ formulas found in {src.name}; nothing written")
         return EXIT_OK
-    report = write_results(evaluation, wb)
-    writer.save_copy(wb, args.out, force=args.force, inputs=[src])
+    report = write_copy(evaluation, args.out, values=args.values, force=args.force)
     failed = evaluation.failed
-    lost = writer.losses_in(src)
+    kept = ("the XB_ formulas are replaced by their values" if args.values else
+            "the XB_ formulas stay, with their results saved")
     if args.format == "json":
         doc = {"book": str(src), "out": str(args.out), "cells_found": len(evaluation.cells),
                "evaluated": len(evaluation.cells) - len(failed), "errors": len(failed),
-               "cells": _cell_rows(evaluation), "not_kept_by_copy": lost,
-               "note": writer.OPENPYXL_LOSSES}
+               "cells": _cell_rows(evaluation), "values": args.values,
+               "parts": report.package.to_dict() if report.package else None}
         sys.stdout.write(json_text(doc))
     else:
         lines = [f"xlbridge recalc: {src.name} -> {args.out}",
                  f"  XB_ cells found: {len(evaluation.cells)}, evaluated: "
                  f"{len(evaluation.cells) - len(failed)}, errors: {len(failed)}"]
         lines += [f"  {x.label} {x.function}: {x.message}" for x in failed]
-        lines.append("  results are written as values in the copy (openpyxl cannot store a "
-                     "formula together with its value)")
-        if report.plain_multi:
-            lines.append(f"  {report.plain_multi} plain formula(s) gave a table: written in "
-                         "full; a spreadsheet program may show only the first value of a "
-                         "plain formula, so enter it as an array formula over its range")
-        lines.append("  note: " + writer.OPENPYXL_LOSSES
-                     + (" This workbook has: " + ", ".join(lost) + "." if lost else ""))
+        lines.append(f"  {kept}; every other part of the workbook is copied unchanged")
+        if report.plain_multi and not args.values:
+            lines.append(f"  {report.plain_multi} plain formula(s) give a table: the copy "
+                         "saves the first value, as a spreadsheet program shows a plain "
+                         "formula; enter it as an array formula over its range, or use "
+                         "--values, to get the whole table")
         print("\n".join(lines))
     return EXIT_FAIL if failed else EXIT_OK
 
