@@ -124,6 +124,7 @@ class Evaluation:
     book: Book
     cells: list[XbCell]
     formulas: FormulaIndex
+    reads: int = 0  # areas read from the book (each once, however many formulas use it)
 
     @property
     def n_ok(self) -> int:
@@ -148,6 +149,10 @@ class _Evaluator:
                     self.cells.append(XbCell(f))
         self.by_anchor = {(c.sheet, c.formula.row, c.formula.col): c for c in self.cells}
         self.done: set[int] = set()  # ids of cells evaluated in the current pass
+        # each area is read from the book once per run, whichever formulas read it
+        self.blocks: dict[Area, list[list[Any]]] = {}
+        self.shaped: dict[Area, Any] = {}
+        self.n_reads = 0
         self._taint_memo: dict[tuple[str, int, int], str | None] = {}
 
     def _xb_regions_hit(self, area: Area) -> list[XbCell]:
@@ -210,7 +215,9 @@ class _Evaluator:
             raise NoInputValue(missing_value_message(self.book.path.name, sheet, missing)
                                   .removeprefix("xlbridge: "))
         me.reads.append(area)
-        block = self.book.read_area(area)
+        if not owners:
+            return self._shaped(area)
+        block = [list(r) for r in self._block(area)]
         for o in owners:
             out = o.output_area()
             for r in range(max(out.r1, area.r1), min(out.r2, area.r2) + 1):
@@ -225,6 +232,26 @@ class _Evaluator:
                         if not out.contains(r, c):
                             block[r - area.r1][c - area.c1] = None
         return xlwings_shape(block)
+
+    def _block(self, area: Area) -> list[list[Any]]:
+        block = self.blocks.get(area)
+        if block is None:
+            self.n_reads += 1
+            block = self.blocks[area] = self.book.read_area(area)
+        return block
+
+    def _shaped(self, area: Area) -> Any:
+        """The value xlwings passes for ``area``; shared by every formula reading it (the
+        functions never change their arguments)."""
+        value = self.shaped.get(area)
+        if value is None and area not in self.shaped:
+            if area.n_cols == 1 and area.n_rows > 1 and area not in self.blocks:
+                self.n_reads += 1
+                value = self.book.read_columns(area)[0]
+            else:
+                value = xlwings_shape(self._block(area))
+            self.shaped[area] = value
+        return value
 
     def _spill_area(self, anchor: Area, me: XbCell) -> Area:
         """The area of ``A2#``: the result of the XB_ cell at A2, or the array range of the
@@ -451,4 +478,4 @@ def evaluate_book(book: Book, workbook: Any = None, progress: Progress | None = 
     formulas = formula_index(book, workbook)
     ev = _Evaluator(book, formulas, functions or _worksheet_functions())
     ev.run(progress)
-    return Evaluation(book, ev.cells, formulas)
+    return Evaluation(book, ev.cells, formulas, ev.n_reads)
