@@ -52,8 +52,8 @@ def make_book(path: Path, rows: int) -> None:
     rng = np.random.default_rng(7)
     size = rng.uniform(5.0, 120.0, rows)
     cost = 40.0 + 3.1 * size + 0.018 * size**2 + rng.normal(0.0, 6.0, rows)
-    body = [f'<row r="1"><c r="A1" t="inlineStr"><is><t>size</t></is></c>'
-            f'<c r="B1" t="inlineStr"><is><t>cost</t></is></c></row>']
+    body = ['<row r="1"><c r="A1" t="inlineStr"><is><t>size</t></is></c>'
+            '<c r="B1" t="inlineStr"><is><t>cost</t></is></c></row>']
     body += [f'<row r="{i}"><c r="A{i}"><v>{a!r}</v></c><c r="B{i}"><v>{b!r}</v></c></row>'
              for i, a, b in zip(range(2, rows + 2), size.tolist(), cost.tolist())]
     data = (f'<worksheet {_NS}><dimension ref="A1:B{rows + 1}"/><sheetData>'
