@@ -188,7 +188,9 @@ def test_info_needs_no_arguments_and_names_our_version():
 def test_functions_carry_help_text_and_category():
     assert set(ws.FUNCTIONS) == {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION",
                                  "XB_DEGREESCAN", "XB_CHECKS", "XB_ROWDIAG", "XB_OPTIMUM",
-                                 "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"}
+                                 "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS",
+                                 "XB_PLEVELS", "XB_CANDIDATES", "XB_LEARNING", "XB_BASEYEAR",
+                                 "XB_CERCARD"}
     for name, f in ws.FUNCTIONS.items():
         assert f.__doc__ and len(f.__doc__) <= 255 and "\n" not in f.__doc__, name
         if ws.DECORATORS == "shim":

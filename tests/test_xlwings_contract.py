@@ -42,7 +42,13 @@ EXPECTED_ARGS = {
     "XB_PLOT": ["y", "x", "model", "kind", "options"],  # caller is filled in by xlwings
     "XB_GROUPS": ["group", "y", "x", "model", "options"],
     "XB_VERSIONS": [],
+    "XB_PLEVELS": ["y", "x", "model", "new_x", "options"],
+    "XB_CANDIDATES": ["y", "drivers", "options"],
+    "XB_LEARNING": ["units", "costs", "at", "options"],
+    "XB_BASEYEAR": ["costs", "years", "index", "options"],
+    "XB_CERCARD": ["y", "x", "model", "options"],
 }
+OPTIONAL_ARGS = {"options", "at"}
 
 
 def invented():
@@ -127,7 +133,7 @@ def test_one_vba_function_per_worksheet_function(child):
     assert vba.count("End Function") == len(EXPECTED_ARGS) and "Sub " not in vba
     for name, args in EXPECTED_ARGS.items():
         sig = [a.strip() for a in funcs[name].split(",")] if funcs[name] else []
-        want = [f"Optional {a}" if a == "options" else a for a in args]
+        want = [f"Optional {a}" if a in OPTIONAL_ARGS else a for a in args]
         assert sig == want, name
         passed = args + (["Nothing"] if name == "XB_PLOT" else [])  # caller, set by xlwings
         assert f'XLPy.CallUDF("xlbridge.worksheet", "{name}", Array({", ".join(passed)})' in vba

@@ -9,9 +9,22 @@ and no files here. The parts, in the order a worksheet call goes through them:
 - ``tables``: fit results as tables, and the basic worksheet functions' table calls;
 - ``models``: degree scan, checks, row diagnostics, optimum, slopes, figures;
 - ``groups``: one model per group;
+- ``cer``: percentiles, candidate CERs, learning curves, base-year costs, the CER card
+  (``cerrows``: the CER rows of the basic tables);
 - ``errors``: ``CellError`` with its ``kind``, and one ``xlbridge: ...`` cell per exception.
 """
 
+from .cer import (
+    CANDIDATE_COLUMNS,
+    baseyear_cells,
+    candidates_cells,
+    candidates_table,
+    card_cells,
+    learning_cells,
+    learning_table,
+    plevels_cells,
+    plevels_table,
+)
 from .errors import (
     Cell,
     CellError,
@@ -89,3 +102,5 @@ __all__ = [
     "prepare_fit", "rows_cells", "rows_table", "run_guarded", "scan_cells", "slope_cells",
     "slope_table", "stats_cells", "stats_table",
 ]
+__all__ += ["CANDIDATE_COLUMNS", "baseyear_cells", "candidates_cells", "candidates_table",
+            "card_cells", "learning_cells", "learning_table", "plevels_cells", "plevels_table"]

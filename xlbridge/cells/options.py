@@ -17,6 +17,10 @@ from dataclasses import dataclass, field, fields, replace
 from typing import Any
 
 from ..engine.api import ERROR_TYPES, SE_TYPES
+from ..engine.candidates import CANDIDATE_FORMS, MAX_DRIVERS
+from ..engine.cer import CORRECTIONS, METHODS
+from ..engine.learning import THEORIES
+from ..engine.percentiles import DEFAULT_LEVELS
 
 __all__ = [
     "Options",
@@ -82,6 +86,63 @@ def _folds(text: str) -> int | None:
     return int(v)
 
 
+def _auto_or(parse: Callable[[str], Any]) -> Callable[[str], Any]:
+    """``auto`` means None (the function's own default), anything else ``parse``."""
+    def inner(text: str) -> Any:
+        return None if text.lower() == "auto" else parse(text)
+
+    return inner
+
+
+def _list_of(*allowed: str) -> Callable[[str], tuple[str, ...]]:
+    """A comma-separated list of ``allowed`` words, each once, in the order given."""
+    def parse(text: str) -> tuple[str, ...]:
+        items = [t.strip().lower() for t in text.split(",") if t.strip()]
+        if not items or any(t not in allowed for t in items) or len(set(items)) != len(items):
+            raise ValueError("use one or more of " + ", ".join(allowed) + " separated by commas")
+        return tuple(items)
+
+    return parse
+
+
+def _levels(text: str) -> tuple[float, ...]:
+    msg = "use percent levels between 0 and 100 separated by commas, e.g. 10,20,50,80,90"
+    try:
+        vals = tuple(float(t) for t in text.replace(" ", "").split(","))
+    except ValueError:
+        raise ValueError(msg) from None
+    if not vals or not all(math.isfinite(v) and 0 < v < 100 for v in vals):
+        raise ValueError(msg)
+    return vals
+
+
+def _whole_between(lo: int, hi: int) -> Callable[[str], int]:
+    def parse(text: str) -> int:
+        try:
+            v = float(text)
+        except ValueError:
+            v = math.nan
+        if not (math.isfinite(v) and v.is_integer() and lo <= v <= hi):
+            raise ValueError(f"use a whole number from {lo} to {hi}")
+        return int(v)
+
+    return parse
+
+
+def _above_one(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = math.nan
+    if not (math.isfinite(v) and v > 1):
+        raise ValueError("use a number above 1, e.g. 10")
+    return v
+
+
+def _show_list(value: tuple) -> str:
+    return ",".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value)
+
+
 def _listed(choices: tuple[str, ...]) -> str:
     """``"a, b or c"``."""
     return ", ".join(choices[:-1]) + " or " + choices[-1]
@@ -145,13 +206,61 @@ class Options:
         "rows)", show=lambda v: "auto" if v is None else ("loo" if v == 0 else str(v)),
     )
 
+    # cost-estimating relationships (model power, factor or exponential), percentiles,
+    # candidate comparison, learning curves and base-year costs
+    method: str | None = _opt(
+        None, _auto_or(_choice(*METHODS)), "auto, " + _listed(METHODS),
+        "how to fit: a power, factor or exponential model needs one (log = least squares "
+        "on ln y, mupe, zmpe, ols = least squares in units); on a polynomial, log and mupe "
+        "mean log=yes and error=percent", fit_kwarg="method", show=lambda v: v or "auto",
+    )
+    correction: str = _opt(
+        "smearing", _choice(*CORRECTIONS), _listed(CORRECTIONS),
+        "back-transform of a log fit to units: smearing (Duan) or normal (exp(s^2/2))",
+        fit_kwarg="correction",
+    )
+    levels: tuple[float, ...] = _opt(
+        tuple(float(v) for v in DEFAULT_LEVELS), _levels,
+        "percent levels separated by commas", "percentiles of a new estimate",
+        show=_show_list,
+    )
+    base_year: int | None = _opt(
+        None, _auto_or(_whole_between(1000, 9999)), "a year such as 2024, or auto",
+        "the year whose prices the costs are in: shown with every equation; the year to "
+        "convert to in XB_BASEYEAR", show=lambda v: "auto" if v is None else str(v),
+    )
+    theory: str = _opt(
+        "unit", _choice(*THEORIES), _listed(THEORIES),
+        "learning-curve theory: unit cost or cumulative average",
+    )
+    forms: tuple[str, ...] = _opt(
+        ("power",), _list_of(*CANDIDATE_FORMS), "one or more of " + ", ".join(CANDIDATE_FORMS),
+        "model forms to compare as candidates", show=_show_list,
+    )
+    methods: tuple[str, ...] = _opt(
+        ("log", "mupe"), _list_of(*METHODS), "one or more of " + ", ".join(METHODS),
+        "fitting methods to compare as candidates", show=_show_list,
+    )
+    max_drivers: int = _opt(
+        1, _whole_between(1, MAX_DRIVERS), f"a whole number from 1 to {MAX_DRIVERS}",
+        "most drivers in one candidate model", show=str,
+    )
+    vif_limit: float = _opt(
+        10.0, _above_one, "a number above 1",
+        "a candidate with a larger VIF is collinear (10 is common practice)", show=repr,
+    )
+
     def fit_kwargs(self) -> dict[str, Any]:
-        """Keyword arguments for ``xlbridge.fit`` taken from these options."""
-        return {
+        """Keyword arguments for ``xlbridge.fit`` taken from these options (the correction
+        only with a method: it applies to CER log fits alone)."""
+        out = {
             f.metadata["fit_kwarg"]: getattr(self, f.name)
             for f in fields(self)
-            if f.metadata.get("fit_kwarg")
+            if f.metadata.get("fit_kwarg") and getattr(self, f.name) is not None
         }
+        if self.method is None:
+            out.pop("correction", None)
+        return out
 
     def to_text(self, only_changed: bool = True) -> str:
         """Canonical options text that :func:`parse_options` reads back to equal options."""

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from ..engine import FitResult, ModelError, fit
+from ..engine.cer import METHODS, is_form
 from ..engine.errors import ModelErrorKind
 from .cache import FIT_CACHE, content_key
 from .errors import CellError, CellErrorKind
@@ -31,7 +32,8 @@ from .values import (
     row_codes,
 )
 
-__all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells"]
+__all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells", "model_failure",
+           "sheet_row_text"]
 
 SHAPE = CellErrorKind.SHAPE
 
@@ -49,6 +51,11 @@ class FitInput:
     drops: tuple[tuple[str, int], ...]
     row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (drop_reason)
     weights: np.ndarray | None = None
+
+    @property
+    def header_rows(self) -> int:
+        """Rows above the data in the selected ranges (1 when a header row gave names)."""
+        return int(self.names is not None or self.response is not None)
 
     @property
     def n_dropped(self) -> int:
@@ -123,7 +130,19 @@ def model_failure(exc: ModelError, inp: FitInput) -> CellError:
     text = str(exc)
     if inp.drops and getattr(exc, "kind", None) is ModelErrorKind.SHORTAGE:
         text += f" ({drops_text(inp.drops)} for blank, text or error cells)"
+    if is_form(inp.model) and inp.options.method is None:
+        text += f" (in the options: method={'|'.join(METHODS)}, e.g. method=mupe)"
+    text += sheet_row_text(getattr(exc, "row", None), inp.header_rows)
     return CellError.from_model(exc, text)
+
+
+def sheet_row_text(row: int | None, header_rows: int) -> str:
+    """Where the engine's data ``row`` sits in the selected range, when a header row above
+    the data shifts it ("" when the data row is the range's row, or no row is named)."""
+    if row is None or not header_rows:
+        return ""
+    return (f" (data row {row} is row {row + header_rows} of the selected range, counting "
+            "its header row)")
 
 
 def _fit_now(inp: FitInput) -> FitResult:

@@ -16,7 +16,14 @@ from typing import Any
 
 import numpy as np
 
-from ..engine import FitResult
+from ..engine import CerResult, FitResult
+from .cerrows import (
+    cer_coef_rows,
+    cer_predict_rows,
+    cer_stats_rows,
+    fit_unit_rows,
+    with_base_year,
+)
 from .errors import Cell, CellError, CellErrorKind, Table, clip_text
 from .options import Options
 from .prepare import fit_cells
@@ -136,11 +143,16 @@ def _blank_note(blanks: dict[str, str]) -> str | None:
     return "blank cells: " + ", ".join(f"{k} {v}" for k, v in blanks.items())
 
 
-def coef_table(result: FitResult, options: Options | None = None) -> Table:
+def coef_table(result: FitResult | CerResult, options: Options | None = None) -> Table:
     """One row per term: estimate, standard error, t ratio, p-value, interval, VIFs.
 
-    VIF columns are blank for the intercept; any other blank gets a note row below."""
+    VIF columns are blank for the intercept; any other blank gets a note row below.
+    A CER: ``a`` first, then the exponents or slopes (``cells.cerrows``)."""
     opts = options or Options()
+    if isinstance(result, CerResult):
+        rows, notes = cer_coef_rows(result, opts.header)
+        note_rows(rows, notes)
+        return finish_table(rows)
     rows: list[list[Any]] = [list(COEF_COLUMNS)] if opts.header else []
     blanks: dict[str, str] = {}
     for c in result.coefficients:
@@ -158,23 +170,34 @@ def coef_table(result: FitResult, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def stats_table(result: FitResult, options: Options | None = None) -> Table:
+def stats_table(result: FitResult | CerResult, options: Options | None = None) -> Table:
     """Rows ``statistic, value``: model, n_used, n_dropped, the FitStats fields, level,
-    then ``note`` rows (engine notes, dropped rows, blank values)."""
+    fit_space (the space of the rows above it: log for a log fit), the unit-space block
+    (see, cv, r2_unit, bias_percent, spe for multiplicative fits, the relevant range),
+    base_year when stated, then
+    ``note`` rows (engine notes, dropped rows, blank values). A CER: ``cells.cerrows``."""
     opts = options or Options()
     rows: list[list[Any]] = [["statistic", "value"]] if opts.header else []
-    rows.append(["model", result.model_text])
     blanks: dict[str, str] = {}
-    for f in fields(result.stats):
-        v = getattr(result.stats, f.name)
-        word = _missing_word(v)
+    if isinstance(result, CerResult):
+        body, notes = cer_stats_rows(result, opts.base_year)
+    else:
+        body = [["model", result.model_text]]
+        for f in fields(result.stats):
+            body.append([f.name, getattr(result.stats, f.name)])
+            if f.name == "n_used":
+                body.append(["n_dropped", result.n_dropped])
+        body.append(["level", result.level])
+        body.append(["fit_space", "log" if result.remedy.log else "unit"])
+        body += fit_unit_rows(result)
+        if opts.base_year is not None:
+            body.append(["base_year", opts.base_year])
+        notes = list(result.notes)
+    for name, v in body:
+        word = _missing_word(v) if not isinstance(v, str) else None
         if word:
-            blanks[f.name] = word
-        rows.append([f.name, v])
-        if f.name == "n_used":
-            rows.append(["n_dropped", result.n_dropped])
-    rows.append(["level", result.level])
-    notes = list(result.notes)
+            blanks[name] = word
+    rows += body
     note = _blank_note(blanks)
     if note:
         notes.append(note)
@@ -202,7 +225,8 @@ def new_points(result: FitResult, new_x: Any, options: Options | None = None, *,
     """Points to evaluate a fit at, from raw cells: ``(points, good, codes)`` with one entry
     per row of ``what`` (after its header); ``points`` holds only the usable rows."""
     opts = options or Options()
-    predictors = tuple(result.spec.predictors)
+    predictors = tuple(result.drivers if isinstance(result, CerResult)
+                       else result.spec.predictors)
     k = len(predictors)
     flat_as_row = False
     raw = from_array(new_x)
@@ -251,6 +275,12 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None)
     opts = options or Options()
     pts, good, codes = new_points(result, new_x, opts)
     rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
+    if isinstance(result, CerResult):
+        cer_rows = cer_predict_rows(result, pts, opts.level) if good.any() else []
+        rows += aligned_rows(good, codes, len(PREDICT_COLUMNS), "new_x", cer_rows.__getitem__)
+        note_rows(rows, [f"a CER gives the estimate and the interval of a new observation "
+                         f"({result.error_model} error); mean intervals and leverage are blank"])
+        return finish_table(rows)
     pred = result.predict(pts, level=opts.level) if good.any() else None
 
     def row_of(j: int) -> list[Any]:
@@ -269,7 +299,7 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None)
 
 def equation_text(result: FitResult, options: Options | None = None) -> Table:
     """One cell: the fitted equation in raw units with round-trip coefficients."""
-    text = result.equation()
+    text = with_base_year(result.equation(), (options or Options()).base_year)
     if len(text) > MAX_CELL_TEXT:
         raise CellError(f"the equation has {len(text)} characters, more than a cell holds; "
                         "use XB_COEFS for the coefficients", CellErrorKind.RESULT)

@@ -88,7 +88,7 @@ def prepare(y, x, form: str, names=None):
             val = yv[row - 1] if what == "y" else xv[row - 1]
             raise ModelError(f"a {form} CER needs {what} {need} in every row; row {row} has "
                              f"{what} = {np.array2string(np.asarray(val), separator=', ')}",
-                             DATA)
+                             DATA, row=row)
     return yv[used], xv[used], used, drivers
 
 

@@ -21,14 +21,17 @@ class ModelErrorKind(str, Enum):
 
 class ModelError(ValueError):
     """A model, its data or its options cannot be fitted; the message says what to fix and
-    ``kind`` (a ``ModelErrorKind``) says which sort of problem it is."""
+    ``kind`` (a ``ModelErrorKind``) says which sort of problem it is. ``row`` is the 1-based
+    data row the message names, when it names one (front ends add where that row sits)."""
 
-    def __init__(self, message: str, kind: ModelErrorKind = ModelErrorKind.SPEC):
+    def __init__(self, message: str, kind: ModelErrorKind = ModelErrorKind.SPEC,
+                 row: int | None = None):
         super().__init__(message)
         self.kind = kind
+        self.row = row
 
     def __reduce__(self):  # keep the kind through pickling (e.g. to and from workers)
-        return (type(self), (str(self), self.kind))
+        return (type(self), (str(self), self.kind, self.row))
 
 
 def check_level(level: object) -> float:

@@ -152,11 +152,13 @@ def _column(v, what: str) -> np.ndarray:
     return a
 
 
-def _positive(a: np.ndarray, what: str) -> None:
+def _positive(a: np.ndarray, what: str, rows: np.ndarray) -> None:
+    """``rows``: the 1-based input row of each entry of ``a`` (blank rows already left out)."""
     bad = ~np.isfinite(a) | (a <= 0)
     if bad.any():
-        row = int(np.argmax(bad)) + 1
-        raise ModelError(f"{what} must be numbers above 0; row {row} has {a[row - 1]:g}", DATA)
+        i = int(np.argmax(bad))
+        raise ModelError(f"{what} must be numbers above 0; row {rows[i]} has {a[i]:g}", DATA,
+                         row=int(rows[i]))
 
 
 def _loglog(u: np.ndarray, c: np.ndarray):
@@ -209,12 +211,12 @@ def learning_curve(units, costs, theory: str = "unit", first=None, last=None,
     rows = np.flatnonzero(keep) + 1
     c = c[keep]
     cols = [col[keep] for col in cols]
-    _positive(c, "costs")
+    _positive(c, "costs", rows)
     for col, what in zip(cols, ("first unit", "last unit") if lots else ("unit",)):
         for r, v in zip(rows, col):
             if not (v >= 1 and float(v).is_integer()):
                 raise ModelError(f"{what} must be a whole number of at least 1; row {r} has "
-                                 f"{v:g}", DATA)
+                                 f"{v:g}", DATA, row=int(r))
     if len(c) < 3:
         raise ModelError(f"a learning curve needs at least 3 rows with numbers; found {len(c)}",
                          ModelErrorKind.SHORTAGE)
@@ -235,7 +237,8 @@ def learning_curve(units, costs, theory: str = "unit", first=None, last=None,
         back = g < f
         if back.any():
             i = int(np.argmax(back))
-            raise ModelError(f"row {rows[i]}: last unit {g[i]} is before first unit {f[i]}", DATA)
+            raise ModelError(f"row {rows[i]}: last unit {g[i]} is before first unit {f[i]}", DATA,
+                             row=int(rows[i]))
         if theory == "unit":
             avg = c / (g - f + 1)
             q = (f + g + 2 * np.sqrt(f * g)) / 4.0
@@ -259,7 +262,7 @@ def learning_curve(units, costs, theory: str = "unit", first=None, last=None,
                 r = rows[order][gaps[0]]
                 raise ModelError(f"cumulative-average theory from lots needs lots covering "
                                  f"units 1, 2, ... in order with no gap or overlap; row {r} "
-                                 f"starts at unit {f[gaps[0]]}", DATA)
+                                 f"starts at unit {f[gaps[0]]}", DATA, row=int(r))
             coef, cov, s = _loglog(g.astype(float), np.cumsum(c) / g)
     df = len(c) - 2
     tq = t_quantile(df, level)

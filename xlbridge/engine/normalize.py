@@ -11,13 +11,13 @@ from .errors import ModelError, ModelErrorKind
 DATA = ModelErrorKind.DATA
 
 
-def _year(v, where: str) -> int:
+def _year(v, where: str, row: int | None = None) -> int:
     try:
         f = float(v)
     except (TypeError, ValueError):
-        raise ModelError(f"{where}: the year must be a whole number; got {v!r}", DATA) from None
+        f = math.nan
     if not math.isfinite(f) or not f.is_integer():
-        raise ModelError(f"{where}: the year must be a whole number; got {v!r}", DATA)
+        raise ModelError(f"{where}: the year must be a whole number; got {v!r}", DATA, row=row)
     return int(f)
 
 
@@ -69,9 +69,9 @@ def to_base_year(costs, years, index_years, index_values, base_year: int) -> np.
     for i, (cost, y) in enumerate(zip(c, yrs), start=1):
         if math.isnan(cost):
             continue
-        yr = _year(y, f"row {i}")
+        yr = _year(y, f"row {i}", row=i)
         if yr not in table:
             raise ModelError(f"row {i}: year {yr} is not in the index table; add its index",
-                             DATA)
+                             DATA, row=i)
         out[i - 1] = cost * table[base] / table[yr]
     return out

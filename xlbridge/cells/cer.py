@@ -1,0 +1,377 @@
+"""Tables of the cost-estimating functions from cells: percentiles of a new estimate, the
+candidate comparison, learning curves, base-year costs and the CER card. Same cell rules,
+options and output rules as the basic tables (plain 2-D tables of float / str, a header row
+unless ``header=no``); the engine's refusals arrive as ``xlbridge:`` cells, with the data
+row the engine names placed in the selected range when a header row shifts it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..engine import (
+    CandidateTable,
+    CerResult,
+    FitResult,
+    LearningCurve,
+    ModelError,
+    compare_candidates,
+    learning_curve,
+    percentiles,
+    to_base_year,
+)
+from .cache import SCAN_CACHE, content_key
+from .cerrows import with_base_year
+from .errors import CellError, CellErrorKind, Table
+from .options import Options
+from .prepare import FitInput, fit_prepared, prepare_fit, sheet_row_text
+from .tables import aligned_rows, finish_table, new_points, note_rows
+from .values import OK, CleanCells, clean_cells, drop_summary, drops_text, options_value, row_codes
+
+__all__ = ["CANDIDATE_COLUMNS", "CardFacts", "baseyear_cells", "candidates_cells",
+           "candidates_table", "card_cells", "card_facts", "card_table", "learning_cells",
+           "learning_table", "plevels_cells", "plevels_table", "run_engine"]
+
+CANDIDATE_COLUMNS = ("rank", "form", "method", "drivers", "n", "see", "cv", "spe", "r2_unit",
+                     "bias_percent", "worst_p", "max_vif", "verdict")
+SHAPE = CellErrorKind.SHAPE
+
+
+def run_engine(fn: Callable[[], Any], header_rows: int) -> Any:
+    """Call an engine function; its ModelError becomes a cell error that places the data
+    row it names in the selected range."""
+    try:
+        return fn()
+    except ModelError as exc:
+        raise CellError.from_model(exc, str(exc) + sheet_row_text(exc.row, header_rows)) \
+            from None
+
+
+# --- percentiles of a new estimate ---------------------------------------------------------
+
+def plevels_table(result: FitResult | CerResult, new_x: Any, options: Options | None = None,
+                  *, ints_are_errors: bool = True) -> Table:
+    """One row per row of ``new_x``: the estimate, one column per percentile level, and
+    the distribution's parameters for a risk tool (distribution, location, scale, df)."""
+    opts = options or Options()
+    pts, good, codes = new_points(result, new_x, opts, ints_are_errors=ints_are_errors)
+    levels = opts.levels
+    cols = (["estimate"] + [f"p{v:g}" for v in levels]
+            + ["distribution", "location", "scale", "df", "range_flag"])
+    rows: list[list[Any]] = [cols] if opts.header else []
+    if good.any():
+        pc = percentiles(result, pts, levels)
+        pred = result.predict(pts, opts.level)
+    else:
+        pc = pred = None
+
+    def row_of(j: int) -> list[Any]:
+        assert pc is not None and pred is not None
+        par = pc.params[j]
+        loc, scale = (par["mu"], par["sigma"]) if "mu" in par else (par["mean"], par["sd"])
+        flag = "extrapolated" if bool(pred.extrapolated[j]) else "inside"
+        return [pred.fitted[j], *pc.values[j], par["distribution"], loc, scale, par["df"], flag]
+
+    rows += aligned_rows(good, codes, len(cols), "new_x", row_of)
+    dist = pc.params[0]["distribution"] if pc is not None else ""
+    notes = [f"{pc.error_model if pc else ''} error model; percentiles use Student's t with "
+             "df degrees of freedom"]
+    if dist == "lognormal":
+        notes.append("lognormal: location and scale are the mean and SD of ln(cost)")
+    elif dist == "normal":
+        notes.append("normal: location and scale are the mean and SD in units")
+    note_rows(rows, notes)
+    return finish_table(rows)
+
+
+def plevels_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None, *,
+                  ints_are_errors: bool = True) -> Table:
+    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+    return plevels_table(fit_prepared(inp), new_x, inp.options, ints_are_errors=ints_are_errors)
+
+
+# --- candidate CERs ------------------------------------------------------------------------
+
+def candidates_table(table: CandidateTable, options: Options | None = None) -> Table:
+    """The ranked candidates, with the rule, the limits and why any fit failed below."""
+    opts = options or Options()
+    rows: list[list[Any]] = [list(CANDIDATE_COLUMNS)] if opts.header else []
+    notes = [table.rule, f"significance level {table.alpha:g}, VIF limit {table.vif_limit:g}; "
+             "cv is SEE / mean y, spe the standard percent error (multiplicative methods)"]
+    for r in table.rows:
+        rows.append([r.rank, r.form, r.method, ", ".join(r.drivers), r.n or "", r.see, r.cv,
+                     r.spe, r.r2_unit, r.bias_percent, r.worst_p, r.max_vif, r.verdict])
+        if r.note:
+            notes.append(f"rank {r.rank} ({r.form} {r.method} on {', '.join(r.drivers)}): "
+                         f"{r.note}")
+    note_rows(rows, notes)
+    return finish_table(rows)
+
+
+def candidates_fit(y: Any, drivers: Any, options: Any = None, *, ints_are_errors: bool = True,
+                   progress: Callable[[int, int], None] | None = None
+                   ) -> tuple[CandidateTable, Options]:
+    """Every candidate of the options' forms, methods and driver subsets (cached)."""
+    inp = prepare_fit(y, drivers, "linear", options, ints_are_errors=ints_are_errors)
+    o = inp.options
+    names = inp.names or tuple(f"x{j + 1}" for j in range(inp.x.shape[1]))
+    key = content_key("candidates", inp.y, inp.x, names, o.forms, o.methods, o.max_drivers,
+                      o.level, o.vif_limit)
+
+    def compute() -> CandidateTable:
+        return run_engine(lambda: compare_candidates(
+            inp.y, inp.x, names, forms=o.forms, methods=o.methods, max_drivers=o.max_drivers,
+            alpha=1 - o.level, vif_limit=o.vif_limit, progress=progress), inp.header_rows)
+
+    return SCAN_CACHE.get_or_compute(key, compute), o
+
+
+def candidates_cells(y: Any, drivers: Any, options: Any = None, *,
+                     ints_are_errors: bool = True) -> Table:
+    table, opts = candidates_fit(y, drivers, options, ints_are_errors=ints_are_errors)
+    return candidates_table(table, opts)
+
+
+# --- learning curves -----------------------------------------------------------------------
+
+def _learning_inputs(units: Any, costs: Any, opts: Options, ints_are_errors: bool
+                     ) -> tuple[CleanCells, CleanCells, int]:
+    u = clean_cells(units, "units", names=opts.names, ints_are_errors=ints_are_errors)
+    c = clean_cells(costs, "costs", names=opts.names, ints_are_errors=ints_are_errors)
+    if c.n_cols != 1:
+        raise CellError(f"costs must be one column; got {c.n_cols} columns", SHAPE)
+    if u.n_cols not in (1, 2):
+        raise CellError("units must be one column (unit numbers) or two columns (first and "
+                        f"last unit of each lot); got {u.n_cols} columns", SHAPE)
+    if u.n_rows != c.n_rows:
+        raise CellError(f"units has {u.n_rows} rows but costs has {c.n_rows}; select ranges "
+                        "of the same height", SHAPE)
+    return u, c, int(u.names is not None or c.names is not None)
+
+
+def learning_fit(units: Any, costs: Any, options: Any = None, *, ints_are_errors: bool = True
+                 ) -> tuple[LearningCurve, Options, tuple[tuple[str, int], ...]]:
+    """The fitted curve, the options and the rows the cell rules dropped."""
+    opts = options_value(options, ints_are_errors=ints_are_errors)
+    u, c, head = _learning_inputs(units, costs, opts, ints_are_errors)
+    drops = drop_summary(row_codes(u.codes, c.codes))
+    cost = c.values[:, 0]
+    if u.n_cols == 1:
+        curve = run_engine(lambda: learning_curve(u.values[:, 0], cost, opts.theory,
+                                                  level=opts.level), head)
+    else:
+        curve = run_engine(lambda: learning_curve(None, cost, opts.theory, first=u.values[:, 0],
+                                                  last=u.values[:, 1], level=opts.level), head)
+    return curve, opts, drops
+
+
+def _at_rows(curve: LearningCurve, at: Any, opts: Options, ints_are_errors: bool
+             ) -> list[list[Any]]:
+    a = clean_cells(at, "at", names="no", ints_are_errors=ints_are_errors,
+                    flat_as_row=isinstance(at, (list, tuple)) and len(at) == 2
+                    and not isinstance(at[0], (list, tuple)))
+    if a.n_cols not in (1, 2):
+        raise CellError("at must be one column (unit numbers n) or two columns (first and last "
+                        f"unit m, n); got {a.n_cols} columns", SHAPE)
+    rows: list[list[Any]] = []
+    for i in range(a.n_rows):
+        if (a.codes[i] != OK).any():
+            continue
+        vals = a.values[i]
+        try:
+            if a.n_cols == 1:
+                n = vals[0]
+                rows += [[f"unit {n:g}", curve.unit_cost(n)],
+                         [f"units 1-{n:g} (cumulative)", curve.cumulative_cost(n)]]
+            else:
+                m, n = vals
+                rows.append([f"units {m:g}-{n:g}", curve.lot_cost(m, n)])
+        except ModelError as exc:
+            raise CellError.from_model(exc, f"at row {i + 1}: {exc}") from None
+    return rows
+
+
+def learning_table(curve: LearningCurve, at: Any = None, options: Options | None = None, *,
+                   drops: tuple[tuple[str, int], ...] = (), ints_are_errors: bool = True
+                   ) -> Table:
+    """Rows ``item, value``: theory, data, n, slope (percent) with SE and interval, T1 with
+    SE and interval, the log-space SEE, then the costs asked for in ``at``."""
+    opts = options or Options()
+    rows: list[list[Any]] = [["item", "value"]] if opts.header else []
+    rows += [["theory", curve.theory], ["data", curve.data or "given"], ["n", curve.n],
+             ["slope_percent", 100 * curve.slope], ["slope_se_percent", 100 * curve.slope_se],
+             ["slope_ci_lower_percent", 100 * curve.slope_ci[0]],
+             ["slope_ci_upper_percent", 100 * curve.slope_ci[1]], ["b", curve.b],
+             ["t1", curve.t1], ["t1_se", curve.t1_se], ["t1_ci_lower", curve.t1_ci[0]],
+             ["t1_ci_upper", curve.t1_ci[1]], ["see_log", curve.see_log],
+             ["level", curve.level]]
+    if at is not None:
+        rows += _at_rows(curve, at, opts, ints_are_errors)
+    notes = ["fitted by least squares of ln(cost) on ln(unit): see_log is in log space; "
+             "T1's interval is exp of ln T1's, the slope's is 2^(b's interval)"]
+    if curve.data == "lot" and curve.theory == "unit":
+        notes.append("lot midpoints Q solve T1*Q^b = the lot's average unit cost on the curve: "
+                     "Q = (sum of i^b over the lot / lot size)^(1/b), iterated with b")
+    if drops:
+        notes.append(drops_text(drops))
+    note_rows(rows, notes)
+    return finish_table(rows)
+
+
+def learning_cells(units: Any, costs: Any, at: Any = None, options: Any = None, *,
+                   ints_are_errors: bool = True) -> Table:
+    curve, opts, drops = learning_fit(units, costs, options, ints_are_errors=ints_are_errors)
+    return learning_table(curve, at, opts, drops=drops, ints_are_errors=ints_are_errors)
+
+
+# --- base-year costs -----------------------------------------------------------------------
+
+def baseyear_cells(costs: Any, years: Any, index: Any, options: Any = None, *,
+                   ints_are_errors: bool = True) -> Table:
+    """Costs in the prices of the options' ``base_year``: cost * index[base] / index[year],
+    one row per cost row (a header row when the costs had one); blank costs stay blank."""
+    opts = options_value(options, ints_are_errors=ints_are_errors)
+    if opts.base_year is None:
+        raise CellError("give the year to convert to in the options, e.g. base_year=2024",
+                        CellErrorKind.OPTIONS)
+    c = clean_cells(costs, "costs", names=opts.names, ints_are_errors=ints_are_errors)
+    yr = clean_cells(years, "years", names=opts.names, ints_are_errors=ints_are_errors)
+    ix = clean_cells(index, "index", names=opts.names, ints_are_errors=ints_are_errors)
+    if c.n_cols != 1 or yr.n_cols != 1:
+        raise CellError("costs and years must be one column each", SHAPE)
+    if c.n_rows != yr.n_rows:
+        raise CellError(f"costs has {c.n_rows} rows but years has {yr.n_rows}; select ranges "
+                        "of the same height", SHAPE)
+    if ix.n_cols != 2:
+        raise CellError(f"index must be two columns, year and index; got {ix.n_cols} columns",
+                        SHAPE)
+    keep = ~((ix.codes[:, 0] != OK) & (ix.codes[:, 1] != OK))  # fully blank index rows
+    head = int(c.names is not None or yr.names is not None)
+    out = run_engine(lambda: to_base_year(c.values[:, 0], yr.values[:, 0], ix.values[keep, 0],
+                                          ix.values[keep, 1], opts.base_year), head)
+    rows: list[list[Any]] = []
+    if c.names is not None and opts.header:
+        rows.append([f"{c.names[0]} in {opts.base_year} prices"])
+    rows += [[v] for v in out]
+    return finish_table(rows)
+
+
+# --- the CER card --------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class CardFacts:
+    """What a CER card shows, as (label, value) items, and its cautions."""
+
+    items: tuple[tuple[str, Any], ...]
+    cautions: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        out = {k: (v if not isinstance(v, float) or math.isfinite(v) else None)
+               for k, v in self.items}
+        return out | {"cautions": list(self.cautions)}
+
+
+def _centre(res: CerResult) -> np.ndarray:
+    return res.x.mean(axis=0)
+
+
+def card_facts(res: CerResult, inp_key: str, options: Options | None = None,
+               drops: tuple[tuple[str, int], ...] = (), today: dt.date | None = None
+               ) -> CardFacts:
+    """The card of a fitted CER: equation in units, form, method, rows, relevant range,
+    unit-space statistics, the spread of a new estimate at the drivers' means, base year,
+    date, the input's content hash and the cautions."""
+    opts = options or Options()
+    u = res.unit
+    centre = _centre(res)
+    pc = percentiles(res, centre.reshape(1, -1), (20, 50, 80))
+    est = float(res.predict(centre.reshape(1, -1)).fitted[0])
+    p20, p80 = float(pc.values[0][0]), float(pc.values[0][2])
+    method = res.method
+    if method == "log":
+        bt = res.details["back_transform"]
+        method = f"log ({bt['used']} back-transform factor {bt['factor']:.6g})"
+    elif method == "mupe":
+        method = f"mupe ({res.details['iterations']} reweighting steps)"
+    items: list[tuple[str, Any]] = [
+        ("equation", with_base_year(res.equation(), opts.base_year)),
+        ("form", res.form), ("method", method), ("error_model", res.error_model),
+        ("n_used", u.n), ("n_dropped", res.n_dropped),
+    ]
+    if drops:
+        items.append(("dropped rows", drops_text(drops)))
+    for name, lo, hi in zip(res.drivers, res.x.min(axis=0), res.x.max(axis=0)):
+        items.append((f"relevant range {name}", f"{lo:.6g} to {hi:.6g}"))
+    items += [("see", u.see), ("cv", u.cv)]
+    if u.multiplicative:
+        items.append(("spe", u.spe))
+    items += [("r2_unit", u.r2_unit), ("bias_percent", u.bias_percent)]
+    where = ", ".join(f"{n} = {v:.6g}" for n, v in zip(res.drivers, centre))
+    items += [("centre of the data (driver means)", where), ("estimate at centre", est),
+              ("P20 at centre", p20), ("P80 at centre", p80),
+              ("P20 vs estimate percent", 100 * (p20 / est - 1)),
+              ("P80 vs estimate percent", 100 * (p80 / est - 1)),
+              ("base_year", opts.base_year if opts.base_year is not None else "not stated"),
+              ("date", (today or dt.datetime.now(dt.timezone.utc).date()).isoformat()),
+              ("input content hash", inp_key[:16]), ("level", res.level)]
+    return CardFacts(tuple(items), tuple(cautions(res, opts.base_year)))
+
+
+def cautions(res: CerResult, base_year: int | None) -> list[str]:
+    """What a reviewer should weigh before using the CER (limits are common practice)."""
+    out = []
+    alpha = 1 - res.level
+    for c in res.coefficients[1:]:
+        if not c.p_value < alpha:
+            out.append(f"{c.name} is not significant at the {res.level:g} level "
+                       f"(p = {c.p_value:.3g})")
+    if math.isfinite(res.max_vif) and res.max_vif >= 10:
+        out.append(f"drivers are collinear: max VIF {res.max_vif:.3g} (10 or more; common "
+                   "practice)")
+    p = res.unit.n_params
+    if res.unit.n < 10 * p:
+        out.append(f"{res.unit.n} rows for {p} coefficients: fewer than 10 per coefficient "
+                   "(common rule of thumb)")
+    if res.n_dropped:
+        out.append(f"{res.n_dropped} row(s) left out of the fit")
+    if math.isfinite(res.unit.r2_unit) and res.unit.r2_unit < 0:
+        out.append("R² in units is negative: the back-transformed fit is worse than the mean")
+    if base_year is None:
+        out.append("no base year stated (base_year=YYYY): costs of different years should be "
+                   "brought to one year's prices first")
+    out.extend(res.notes)
+    out.append("estimates outside the relevant range are extrapolations")
+    return out
+
+
+def card_table(facts: CardFacts, options: Options | None = None) -> Table:
+    """Two columns, item and value; one ``caution`` row per caution."""
+    opts = options or Options()
+    rows: list[list[Any]] = [["item", "value"]] if opts.header else []
+    rows += [[k, v] for k, v in facts.items]
+    rows += [["caution", c] for c in facts.cautions]
+    return finish_table(rows)
+
+
+def card_input(y: Any, x: Any, model: Any, options: Any = None, *,
+               ints_are_errors: bool = True) -> tuple[CerResult, FitInput]:
+    """The fitted CER of the cells, and their cleaned input; refuses other models."""
+    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+    res = fit_prepared(inp)
+    if not isinstance(res, CerResult):
+        raise CellError("the CER card documents a power, factor or exponential model with a "
+                        "method in the options, e.g. model power and method=mupe",
+                        CellErrorKind.OPTIONS)
+    return res, inp
+
+
+def card_cells(y: Any, x: Any, model: Any, options: Any = None, *,
+               ints_are_errors: bool = True) -> Table:
+    res, inp = card_input(y, x, model, options, ints_are_errors=ints_are_errors)
+    return card_table(card_facts(res, inp.key(), inp.options, inp.drops), inp.options)
