@@ -15,7 +15,10 @@ import xlbridge.worksheet as ws
 
 ROOT = Path(__file__).resolve().parents[1]
 XB = {"XB_COEFS", "XB_STATS", "XB_PREDICT", "XB_EQUATION", "XB_DEGREESCAN", "XB_CHECKS",
-      "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS"}
+      "XB_ROWDIAG", "XB_OPTIMUM", "XB_MARGINAL", "XB_PLOT", "XB_GROUPS", "XB_VERSIONS",
+      "XB_PLEVELS", "XB_CANDIDATES", "XB_LEARNING", "XB_BASEYEAR", "XB_CERCARD"}
+RANGES = {"y", "x", "new_x", "at_x", "group", "drivers", "units", "costs", "at", "years",
+          "index"}
 # never needed by the worksheet functions: plots, rich output, the fast reader, workbook I/O
 HEAVY = ("matplotlib", "rich", "python_calamine", "openpyxl", "pandas", "defusedxml",
          "xlwings")
@@ -38,7 +41,7 @@ def test_signatures_are_ones_every_runtime_registers():
         assert "caller" not in [p.name for p in params], name
         meta = f.__xlbridge_udf__
         ranges = {a for a, o in meta["args"].items() if o.get("ndim") == 2}
-        assert ranges == {"y", "x", "new_x", "at_x", "group"} & {p.name for p in params}
+        assert ranges == RANGES & {p.name for p in params}
         assert all(o.get("err_to_str") for o in meta["args"].values()), name
 
 

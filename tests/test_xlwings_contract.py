@@ -49,6 +49,8 @@ EXPECTED_ARGS = {
     "XB_CERCARD": ["y", "x", "model", "options"],
 }
 OPTIONAL_ARGS = {"options", "at"}
+RANGE_ARGS = {"y", "x", "new_x", "at_x", "group", "drivers", "units", "costs", "at", "years",
+              "index"}
 
 
 def invented():
@@ -158,7 +160,7 @@ def test_import_functions_registers_descriptions_and_category(child):
         # xlwings fills "caller" itself (the calling range): not an argument in the cell
         assert all(a["err_to_str"] for a in meta["args"] if a["name"] != "caller")
         ranges = {a["name"] for a in meta["args"] if a["ndim"] == 2}
-        assert ranges == {"y", "x", "new_x", "at_x", "group"} & set(EXPECTED_ARGS[name])
+        assert ranges == RANGE_ARGS & set(EXPECTED_ARGS[name])
 
 
 def test_only_the_classic_add_in_gets_the_hidden_caller(child):

@@ -300,24 +300,23 @@ _CER_OPTIONS = ("Optional text of key=value pairs separated by ; e.g. method=mup
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
 @xw.arg("model", doc="A degree, 'linear', ... or a CER form: 'power', 'factor', "
-        "'exponential' (with method= in the options).", err_to_str=True)
-@xw.arg("new_x", doc=_NEW_X, err_to_str=True)
-@xw.arg("options", doc=_CER_OPTIONS, err_to_str=True)
+        "'exponential' (with method= in the options).", **CELL)
+@xw.arg("new_x", doc=_NEW_X, **RANGE)
+@xw.arg("options", doc=_CER_OPTIONS, **CELL)
 def XB_PLEVELS(y: Any, x: Any, model: Any, new_x: Any, options: Any = None) -> Table:
     """Percentiles of a new estimate at each new_x row (levels=10,20,50,80,90 by default), following the fit's error model, with the distribution and its location, scale and df for a risk tool."""  # noqa: E501
     return run_guarded(cells.plevels_cells, y, x, model, new_x, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
 @xw.arg("drivers", doc="The candidate driver columns, same height as y; a text first row "
-        "gives their names.", err_to_str=True)
+        "gives their names.", **RANGE)
 @xw.arg("options", doc="Optional text: forms=power,exponential,factor,linear; "
-        "methods=log,mupe,zmpe,ols; max_drivers=1-3; level=0.95; vif_limit=10.",
-        err_to_str=True)
+        "methods=log,mupe,zmpe,ols; max_drivers=1-3; level=0.95; vif_limit=10.", **CELL)
 def XB_CANDIDATES(y: Any, drivers: Any, options: Any = None) -> Table:
     """Candidate CERs side by side, ranked: rank, form, method, drivers, n, see, cv, spe, r2_unit, bias_percent, worst_p, max_vif, verdict; the ranking rule below the table."""  # noqa: E501
     return run_guarded(cells.candidates_cells, y, drivers, options)
@@ -325,33 +324,32 @@ def XB_CANDIDATES(y: Any, drivers: Any, options: Any = None) -> Table:
 
 @xw.func(category=CATEGORY)
 @xw.arg("units", doc="Unit numbers (one column), or the first and last unit of each lot "
-        "(two columns).", err_to_str=True)
+        "(two columns).", **RANGE)
 @xw.arg("costs", doc="Cost of each unit, or each lot's total cost; same height as units.",
-        err_to_str=True)
+        **RANGE)
 @xw.arg("at", doc="Optional: unit numbers n (one column: cost of unit n and of units 1..n) "
-        "or pairs m, n (two columns: cost of units m..n).", err_to_str=True)
-@xw.arg("options", doc="Optional text: theory=unit|cumulative; level=0.95; header=no.",
-        err_to_str=True)
+        "or pairs m, n (two columns: cost of units m..n).", **RANGE)
+@xw.arg("options", doc="Optional text: theory=unit|cumulative; level=0.95; header=no.", **CELL)
 def XB_LEARNING(units: Any, costs: Any, at: Any = None, options: Any = None) -> Table:
     """Learning curve from unit or lot data: slope percent with SE and interval, T1 with SE and interval, and the costs of the units asked for in at."""  # noqa: E501
     return run_guarded(cells.learning_cells, units, costs, at, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("costs", doc="Costs of different years: one column.", err_to_str=True)
-@xw.arg("years", doc="The year of each cost, same height as costs.", err_to_str=True)
-@xw.arg("index", doc="The price index: two columns, year and index value.", err_to_str=True)
-@xw.arg("options", doc="Text with the year to convert to: base_year=2024.", err_to_str=True)
+@xw.arg("costs", doc="Costs of different years: one column.", **RANGE)
+@xw.arg("years", doc="The year of each cost, same height as costs.", **RANGE)
+@xw.arg("index", doc="The price index: two columns, year and index value.", **RANGE)
+@xw.arg("options", doc="Text with the year to convert to: base_year=2024.", **CELL)
 def XB_BASEYEAR(costs: Any, years: Any, index: Any, options: Any = None) -> Table:
     """Costs in one base year's prices: cost * index(base year) / index(year of the cost), one row per cost row, ready to use as y."""  # noqa: E501
     return run_guarded(cells.baseyear_cells, costs, years, index, options)
 
 
 @xw.func(category=CATEGORY)
-@xw.arg("y", doc=_Y, err_to_str=True)
-@xw.arg("x", doc=_X, err_to_str=True)
-@xw.arg("model", doc="'power', 'factor' or 'exponential'.", err_to_str=True)
-@xw.arg("options", doc=_CER_OPTIONS, err_to_str=True)
+@xw.arg("y", doc=_Y, **RANGE)
+@xw.arg("x", doc=_X, **RANGE)
+@xw.arg("model", doc="'power', 'factor' or 'exponential'.", **CELL)
+@xw.arg("options", doc=_CER_OPTIONS, **CELL)
 def XB_CERCARD(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     """One-screen review card of a CER: equation in units, form, method, rows, relevant range, SEE, CV, SPE, R2 in units, bias, spread at the centre of the data (P20/P80), base year, date, input hash, cautions."""  # noqa: E501
     return run_guarded(cells.card_cells, y, x, model, options)

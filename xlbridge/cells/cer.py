@@ -55,12 +55,12 @@ def run_engine(fn: Callable[[], Any], header_rows: int) -> Any:
 
 # --- percentiles of a new estimate ---------------------------------------------------------
 
-def plevels_table(result: FitResult | CerResult, new_x: Any, options: Options | None = None,
-                  *, ints_are_errors: bool = True) -> Table:
+def plevels_table(result: FitResult | CerResult, new_x: Any,
+                  options: Options | None = None) -> Table:
     """One row per row of ``new_x``: the estimate, one column per percentile level, and
     the distribution's parameters for a risk tool (distribution, location, scale, df)."""
     opts = options or Options()
-    pts, good, codes = new_points(result, new_x, opts, ints_are_errors=ints_are_errors)
+    pts, good, codes = new_points(result, new_x, opts)
     levels = opts.levels
     cols = (["estimate"] + [f"p{v:g}" for v in levels]
             + ["distribution", "location", "scale", "df", "range_flag"])
@@ -90,10 +90,9 @@ def plevels_table(result: FitResult | CerResult, new_x: Any, options: Options | 
     return finish_table(rows)
 
 
-def plevels_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None, *,
-                  ints_are_errors: bool = True) -> Table:
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
-    return plevels_table(fit_prepared(inp), new_x, inp.options, ints_are_errors=ints_are_errors)
+def plevels_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None) -> Table:
+    inp = prepare_fit(y, x, model, options)
+    return plevels_table(fit_prepared(inp), new_x, inp.options)
 
 
 # --- candidate CERs ------------------------------------------------------------------------
@@ -114,11 +113,11 @@ def candidates_table(table: CandidateTable, options: Options | None = None) -> T
     return finish_table(rows)
 
 
-def candidates_fit(y: Any, drivers: Any, options: Any = None, *, ints_are_errors: bool = True,
+def candidates_fit(y: Any, drivers: Any, options: Any = None, *,
                    progress: Callable[[int, int], None] | None = None
                    ) -> tuple[CandidateTable, Options]:
     """Every candidate of the options' forms, methods and driver subsets (cached)."""
-    inp = prepare_fit(y, drivers, "linear", options, ints_are_errors=ints_are_errors)
+    inp = prepare_fit(y, drivers, "linear", options)
     o = inp.options
     names = inp.names or tuple(f"x{j + 1}" for j in range(inp.x.shape[1]))
     key = content_key("candidates", inp.y, inp.x, names, o.forms, o.methods, o.max_drivers,
@@ -132,18 +131,17 @@ def candidates_fit(y: Any, drivers: Any, options: Any = None, *, ints_are_errors
     return SCAN_CACHE.get_or_compute(key, compute), o
 
 
-def candidates_cells(y: Any, drivers: Any, options: Any = None, *,
-                     ints_are_errors: bool = True) -> Table:
-    table, opts = candidates_fit(y, drivers, options, ints_are_errors=ints_are_errors)
+def candidates_cells(y: Any, drivers: Any, options: Any = None) -> Table:
+    table, opts = candidates_fit(y, drivers, options)
     return candidates_table(table, opts)
 
 
 # --- learning curves -----------------------------------------------------------------------
 
-def _learning_inputs(units: Any, costs: Any, opts: Options, ints_are_errors: bool
+def _learning_inputs(units: Any, costs: Any, opts: Options
                      ) -> tuple[CleanCells, CleanCells, int]:
-    u = clean_cells(units, "units", names=opts.names, ints_are_errors=ints_are_errors)
-    c = clean_cells(costs, "costs", names=opts.names, ints_are_errors=ints_are_errors)
+    u = clean_cells(units, "units", names=opts.names)
+    c = clean_cells(costs, "costs", names=opts.names)
     if c.n_cols != 1:
         raise CellError(f"costs must be one column; got {c.n_cols} columns", SHAPE)
     if u.n_cols not in (1, 2):
@@ -155,11 +153,11 @@ def _learning_inputs(units: Any, costs: Any, opts: Options, ints_are_errors: boo
     return u, c, int(u.names is not None or c.names is not None)
 
 
-def learning_fit(units: Any, costs: Any, options: Any = None, *, ints_are_errors: bool = True
+def learning_fit(units: Any, costs: Any, options: Any = None
                  ) -> tuple[LearningCurve, Options, tuple[tuple[str, int], ...]]:
     """The fitted curve, the options and the rows the cell rules dropped."""
-    opts = options_value(options, ints_are_errors=ints_are_errors)
-    u, c, head = _learning_inputs(units, costs, opts, ints_are_errors)
+    opts = options_value(options)
+    u, c, head = _learning_inputs(units, costs, opts)
     drops = drop_summary(row_codes(u.codes, c.codes))
     cost = c.values[:, 0]
     if u.n_cols == 1:
@@ -171,9 +169,9 @@ def learning_fit(units: Any, costs: Any, options: Any = None, *, ints_are_errors
     return curve, opts, drops
 
 
-def _at_rows(curve: LearningCurve, at: Any, opts: Options, ints_are_errors: bool
+def _at_rows(curve: LearningCurve, at: Any, opts: Options
              ) -> list[list[Any]]:
-    a = clean_cells(at, "at", names="no", ints_are_errors=ints_are_errors,
+    a = clean_cells(at, "at", names="no",
                     flat_as_row=isinstance(at, (list, tuple)) and len(at) == 2
                     and not isinstance(at[0], (list, tuple)))
     if a.n_cols not in (1, 2):
@@ -198,8 +196,7 @@ def _at_rows(curve: LearningCurve, at: Any, opts: Options, ints_are_errors: bool
 
 
 def learning_table(curve: LearningCurve, at: Any = None, options: Options | None = None, *,
-                   drops: tuple[tuple[str, int], ...] = (), ints_are_errors: bool = True
-                   ) -> Table:
+                   drops: tuple[tuple[str, int], ...] = ()) -> Table:
     """Rows ``item, value``: theory, data, n, slope (percent) with SE and interval, T1 with
     SE and interval, the log-space SEE, then the costs asked for in ``at``."""
     opts = options or Options()
@@ -212,7 +209,7 @@ def learning_table(curve: LearningCurve, at: Any = None, options: Options | None
              ["t1_ci_upper", curve.t1_ci[1]], ["see_log", curve.see_log],
              ["level", curve.level]]
     if at is not None:
-        rows += _at_rows(curve, at, opts, ints_are_errors)
+        rows += _at_rows(curve, at, opts)
     notes = ["fitted by least squares of ln(cost) on ln(unit): see_log is in log space; "
              "T1's interval is exp of ln T1's, the slope's is 2^(b's interval)"]
     if curve.data == "lot" and curve.theory == "unit":
@@ -224,25 +221,23 @@ def learning_table(curve: LearningCurve, at: Any = None, options: Options | None
     return finish_table(rows)
 
 
-def learning_cells(units: Any, costs: Any, at: Any = None, options: Any = None, *,
-                   ints_are_errors: bool = True) -> Table:
-    curve, opts, drops = learning_fit(units, costs, options, ints_are_errors=ints_are_errors)
-    return learning_table(curve, at, opts, drops=drops, ints_are_errors=ints_are_errors)
+def learning_cells(units: Any, costs: Any, at: Any = None, options: Any = None) -> Table:
+    curve, opts, drops = learning_fit(units, costs, options)
+    return learning_table(curve, at, opts, drops=drops)
 
 
 # --- base-year costs -----------------------------------------------------------------------
 
-def baseyear_cells(costs: Any, years: Any, index: Any, options: Any = None, *,
-                   ints_are_errors: bool = True) -> Table:
+def baseyear_cells(costs: Any, years: Any, index: Any, options: Any = None) -> Table:
     """Costs in the prices of the options' ``base_year``: cost * index[base] / index[year],
     one row per cost row (a header row when the costs had one); blank costs stay blank."""
-    opts = options_value(options, ints_are_errors=ints_are_errors)
+    opts = options_value(options)
     if opts.base_year is None:
         raise CellError("give the year to convert to in the options, e.g. base_year=2024",
                         CellErrorKind.OPTIONS)
-    c = clean_cells(costs, "costs", names=opts.names, ints_are_errors=ints_are_errors)
-    yr = clean_cells(years, "years", names=opts.names, ints_are_errors=ints_are_errors)
-    ix = clean_cells(index, "index", names=opts.names, ints_are_errors=ints_are_errors)
+    c = clean_cells(costs, "costs", names=opts.names)
+    yr = clean_cells(years, "years", names=opts.names)
+    ix = clean_cells(index, "index", names=opts.names)
     if c.n_cols != 1 or yr.n_cols != 1:
         raise CellError("costs and years must be one column each", SHAPE)
     if c.n_rows != yr.n_rows:
@@ -359,10 +354,9 @@ def card_table(facts: CardFacts, options: Options | None = None) -> Table:
     return finish_table(rows)
 
 
-def card_input(y: Any, x: Any, model: Any, options: Any = None, *,
-               ints_are_errors: bool = True) -> tuple[CerResult, FitInput]:
+def card_input(y: Any, x: Any, model: Any, options: Any = None) -> tuple[CerResult, FitInput]:
     """The fitted CER of the cells, and their cleaned input; refuses other models."""
-    inp = prepare_fit(y, x, model, options, ints_are_errors=ints_are_errors)
+    inp = prepare_fit(y, x, model, options)
     res = fit_prepared(inp)
     if not isinstance(res, CerResult):
         raise CellError("the CER card documents a power, factor or exponential model with a "
@@ -371,7 +365,6 @@ def card_input(y: Any, x: Any, model: Any, options: Any = None, *,
     return res, inp
 
 
-def card_cells(y: Any, x: Any, model: Any, options: Any = None, *,
-               ints_are_errors: bool = True) -> Table:
-    res, inp = card_input(y, x, model, options, ints_are_errors=ints_are_errors)
+def card_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
+    res, inp = card_input(y, x, model, options)
     return card_table(card_facts(res, inp.key(), inp.options, inp.drops), inp.options)
