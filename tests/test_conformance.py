@@ -186,6 +186,24 @@ CASES = {
     "data in rows": ("XB_COEFS", ROW_Y, ROW_X, 1),
     "data in rows, predict": ("XB_PREDICT", ROW_Y, ROW_X, 2, R([[2.5, 8]])),
     "dates": ("XB_COEFS", DATE_Y, DATE_X, 1),
+    # cost-estimating relationships, percentiles, candidates, learning curves, base year
+    "cer coefs": ("XB_COEFS", Y1, X1, "power", "method=mupe"),
+    "cer stats": ("XB_STATS", Y1, X1, "power", "method=log; base_year=2024"),
+    "cer predict": ("XB_PREDICT", Y1, X1, "exponential", column("size", [20, None, 90]),
+                    "method=zmpe"),
+    "cer equation": ("XB_EQUATION", Y1, X1, "factor", "method=ols; base_year=2021"),
+    "percentiles": ("XB_PLEVELS", Y1, X1, "power", column("size", [20, 35.5]),
+                    "method=log; levels=10,50,90"),
+    "candidates": ("XB_CANDIDATES", Y2, X2, "forms=power,linear; methods=log,mupe"),
+    "learning units": ("XB_LEARNING", column("unit", [1, 2, 3, 4, 5, 6, 8, 10]),
+                       column("cost", [100, 84.5, 78.25, 72, 68.5, 65.75, 61, 58.5]),
+                       R([[25]])),
+    "learning lots": ("XB_LEARNING", R([["first", "last"], [1, 5], [6, 20], [21, 50]]),
+                      column("lot cost", [410.5, 950, 1510.25]), R([[51, 60]])),
+    "base year": ("XB_BASEYEAR", column("cost", [100, 250.5, None]),
+                  column("year", [2020, 2021, 2022]),
+                  R([[2020, 100], [2021, 104.5], [2022, 110]]), "base_year=2022"),
+    "cer card": ("XB_CERCARD", Y1, X1, "power", "method=mupe; base_year=2024"),
 }
 BAD = {
     "heights differ": ("XB_COEFS", Y1, R(X1.block[:-1]), 2),
@@ -200,6 +218,11 @@ BAD = {
     "plot kind": ("XB_PLOT", Y1, X1, 2, "pie"),
     "degree scan max": ("XB_DEGREESCAN", Y1, X1, "many"),
     "groups heights": ("XB_GROUPS", R(G1.block[:5]), Y1, X1, 1),
+    "power with y below 0": ("XB_COEFS", column("cost", [5, -1, 7, 9]),
+                             column("size", [1, 2, 3, 4]), "power", "method=log"),
+    "lot backwards": ("XB_LEARNING", R([[1, 5], [9, 6], [10, 20]]), R([[5], [6], [7]])),
+    "index year missing": ("XB_BASEYEAR", column("cost", [1, 2]), column("year", [2019, 2020]),
+                           R([[2020, 100]]), "base_year=2020"),
 }
 
 
