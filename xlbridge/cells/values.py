@@ -7,10 +7,11 @@ these shapes, and the same cells give the same numbers whatever the shape:
   ``ndim=2`` also arrives this way;
 - a flat list (or tuple, or 1-D array): one row or one column whose orientation the runtime
   dropped. For y, x, weights and group it is one column (a row of y is the same values).
-  For new_x / at_x it is a column of points when the model has one predictor and one point
-  (one row) when it has k > 1 predictors and the list holds exactly k values; any other
-  length is refused (``tables.new_points``). A flat x is one predictor column, except
-  beside a single y value, where it is that observation's row of predictors
+  For new_x / at_x it is a run of points when the model has one predictor (as is one row
+  of a block) and one point (one row) when it has k > 1 predictors and the list holds
+  exactly k values; any other length is refused (``tables.new_points``). A flat x is one
+  predictor column, except beside a single y value, where it is that observation's row of
+  predictors
   (``prepare.prepare_fit``; no model can be fitted to one row, but the message is then the
   same as for the block);
 - a scalar: one cell.
