@@ -11,9 +11,8 @@ these shapes, and the same cells give the same numbers whatever the shape:
   of a block) and one point (one row) when it has k > 1 predictors and the list holds
   exactly k values; any other length is refused (``tables.new_points``). A flat x is one
   predictor column, except beside a single y value, where it is that observation's row of
-  predictors
-  (``prepare.prepare_fit``; no model can be fitted to one row, but the message is then the
-  same as for the block);
+  predictors (``prepare.prepare_fit``; no model can be fitted to one row, but the message
+  is then the same as for the block);
 - a scalar: one cell.
 
 Cell values (see ``clean_cells``): numbers are ``float`` or ``int`` (the runtimes in the
