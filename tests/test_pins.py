@@ -152,3 +152,17 @@ def test_verify_process_imports_no_desktop_or_plotting_modules(pinned) -> None:
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=120)
     assert proc.stdout.strip() == "0 []", proc.stderr
+
+
+def test_pin_and_verify_write_no_workbook(pinned, capsys) -> None:
+    """pin writes its JSON file only, verify nothing; the workbook is only read."""
+    book, pins = pinned
+    folder = book.parent
+    before = {p.name: sha256(p) for p in folder.iterdir()}
+    code, _, err = run(["verify", book, "--pins", pins], capsys)
+    assert code == 0, err
+    code, _, err = run(["pin", book, "--out", folder / "again.json"], capsys)
+    assert code == 0, err
+    after = {p.name: sha256(p) for p in folder.iterdir()}
+    assert set(after) - set(before) == {"again.json"}
+    assert {k: after[k] for k in before} == before

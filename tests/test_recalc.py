@@ -390,3 +390,28 @@ def test_each_range_is_read_once_and_fitted_once(tmp_path: Path) -> None:
     got = {c.label: c.result for c in ev.cells}
     assert got["Model!A1"] == worksheet.XB_COEFS(yv, xv, 2.0)
     assert got["Model!H10"] == worksheet.XB_CHECKS(yv, xv, 2.0)
+
+
+def test_formula_scan_equals_openpyxl(tmp_path: Path) -> None:
+    """The XML scan of formula cells gives what openpyxl (an independent reader) gives, for
+    the templates, a book of array and plain formulas with escaped text, and a sheet of
+    shared formulas (left to openpyxl, which translates them cell by cell)."""
+    from xlbridge.book.formulas import formula_index
+
+    from .bookfactory import REPO, replace_part
+
+    books = sorted((REPO / "workbook_templates").glob("*.xlsx")) + [_model_book(tmp_path)]
+    escaped = cost_book(tmp_path / "esc.xlsx", formulas={"Model": {
+        "A1": f'=XB_COEFS({D}!B:B,{D}!A:A,2,"level=0.9; note=a<b & c")'}})
+    books.append(escaped)
+    shared_xml = (b'<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/'
+                  b'main"><sheetData><row r="1"><c r="A1"><f t="shared" ref="A1:A3" si="0">'
+                  b"B1*2</f><v>2</v></c></row><row r=\"2\"><c r=\"A2\"><f t=\"shared\" si=\"0\"/>"
+                  b"<v>4</v></c></row></sheetData></worksheet>")
+    books.append(replace_part(escaped, tmp_path / "shared.xlsx", "xl/worksheets/sheet2.xml",
+                              shared_xml))
+    for path in books:
+        wb = openpyxl.load_workbook(path)
+        by_openpyxl = formula_index(open_book(path), wb)
+        assert formula_index(open_book(path)) == by_openpyxl, path.name
+    assert by_openpyxl["Model"][(2, 1)].text == "=B2*2"

@@ -1,11 +1,14 @@
 """The formula cells of a workbook, as text: plain formulas and array formulas.
 
-Read with openpyxl (formulas, not values): from a workbook already open for a copy, or
-read-only from the file, skipping sheets whose XML holds no formula at all.
+Read from each sheet's XML by one scan for ``<f>`` elements (sheets without any are
+skipped by a byte test). A sheet whose formulas the scan does not read itself (shared
+formulas, which must be translated cell by cell; cells without their ``r`` attribute; a
+part that is not UTF-8) is read with openpyxl, as is an open openpyxl workbook if given.
 """
 
 from __future__ import annotations
 
+import re
 import warnings
 import zipfile
 from collections.abc import Iterable
@@ -51,19 +54,82 @@ def _cell_formula(cell: Any, sheet: str) -> FormulaCell | None:
     return None
 
 
-def _sheets_with_formulas(book: Book) -> list[str]:
-    """Sheets whose XML holds a formula at all (a byte test; data sheets are skipped)."""
-    out = []
+_P = rb"(?:[A-Za-z_][\w.-]*:)?"
+_ATTRS = rb"(?:\s+[A-Za-z_][\w.:-]*\s*=\s*(?:\"[^\"]*\"|'[^']*'))*\s*"
+#: A cell whose first child is a formula: <c ...><f ...>text</f> or <f .../>.
+_FORMULA_CELL = re.compile(rb"<" + _P + rb"c(" + _ATTRS + rb")>\s*<" + _P + rb"f(" + _ATTRS
+                           + rb")(?:/>|>([^<]*)</" + _P + rb"f>)")
+_ATTR = re.compile(rb"([A-Za-z_][\w.:-]*)\s*=\s*(?:\"([^\"]*)\"|'([^']*)')")
+_ENTITY = re.compile(r"&(?:(amp|lt|gt|quot|apos)|#([0-9]{1,7})|#x([0-9A-Fa-f]{1,6}));")
+_NAMED = {"amp": "&", "lt": "<", "gt": ">", "quot": '"', "apos": "'"}
+
+
+class _NeedsOpenpyxl(Exception):
+    """The scan cannot read this sheet's formulas itself."""
+
+
+def _unescape(text: str) -> str:
+    def one(m: re.Match[str]) -> str:
+        if m.group(1):
+            return _NAMED[m.group(1)]
+        return chr(int(m.group(2)) if m.group(2) else int(m.group(3), 16))
+    return _ENTITY.sub(one, text) if "&" in text else text
+
+
+def _scan_formulas(data: bytes, sheet: str) -> dict[tuple[int, int], FormulaCell]:
+    """The formula cells of a worksheet part, read from its XML."""
+    head = data[:200]
+    if head[:2] in (b"\xff\xfe", b"\xfe\xff") or b"\x00" in head[:4]:
+        raise _NeedsOpenpyxl
+    out: dict[tuple[int, int], FormulaCell] = {}
+    found = 0
+    for m in _FORMULA_CELL.finditer(data):
+        found += 1
+        c_attrs = {k: a if a is not None else b for k, a, b in _ATTR.findall(m.group(1))}
+        f_attrs = {k: a if a is not None else b for k, a, b in _ATTR.findall(m.group(2))}
+        kind = f_attrs.get(b"t", b"normal")
+        ref = c_attrs.get(b"r")
+        if ref is None or kind == b"shared":
+            raise _NeedsOpenpyxl
+        if kind not in (b"normal", b"array") or m.group(3) is None:
+            continue  # data tables and empty formulas are no formulas to evaluate
+        try:
+            at = parse_ref(ref.decode("ascii"))
+            text = _unescape(m.group(3).decode("utf-8"))
+        except (RefError, UnicodeDecodeError):
+            raise _NeedsOpenpyxl from None
+        if not isinstance(at, Area):
+            raise _NeedsOpenpyxl
+        area = None
+        if kind == b"array":
+            try:
+                arr = parse_ref(f_attrs.get(b"ref", ref).decode("ascii"))
+            except (RefError, UnicodeDecodeError):
+                arr = None
+            area = arr.with_sheet(sheet) if isinstance(arr, Area) else None
+        out[(at.r1, at.c1)] = FormulaCell(sheet, at.r1, at.c1, "=" + text, area)
+    if found != len(re.findall(rb"<" + _P + rb"f[\s>/]", data)):
+        raise _NeedsOpenpyxl  # a formula not where the scan expects it
+    return out
+
+
+def _scan_book(book: Book, index: FormulaIndex) -> list[str]:
+    """Fill ``index`` from the sheets' XML; returns the sheets left for openpyxl."""
+    rest = []
     with zipfile.ZipFile(book.path) as zf:
         for name in book.sheet_names:
             part = book.sheet_part(name)
             if part is None:
-                out.append(name)
+                rest.append(name)
                 continue
             data = zf.read(part)
-            if b"<f" in data or b"<sheetData" not in data:
-                out.append(name)
-    return out
+            if b"<f" not in data and b"<sheetData" in data:
+                continue  # no formula at all
+            try:
+                index[name].update(_scan_formulas(data, name))
+            except _NeedsOpenpyxl:
+                rest.append(name)
+    return rest
 
 
 def _stored_cells(ws: Any) -> Iterable[Any]:
@@ -88,10 +154,10 @@ def formula_index(book: Book, workbook: Any = None) -> FormulaIndex:
     if book.kind == "csv":
         return index
     if workbook is None:
-        openpyxl = safe_openpyxl()
-        wanted = _sheets_with_formulas(book)
+        wanted = _scan_book(book, index)
         if not wanted:
             return index
+        openpyxl = safe_openpyxl()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             try:

@@ -16,10 +16,12 @@ intersection: the top-left value).
 
 from __future__ import annotations
 
+import importlib.util
 import re
+import sys
 from dataclasses import dataclass
-
-from openpyxl.formula.tokenizer import Token, Tokenizer, TokenizerError
+from pathlib import Path
+from types import ModuleType
 
 from xlbridge.book.refs import Area, NameRef, RefError, TableRef, parse_ref
 from xlbridge.book.values import ERROR_TEXTS
@@ -85,6 +87,32 @@ Arg = Literal | Missing | Ref | Spill | ArrayConst | Call
 
 
 # --- tokens ----------------------------------------------------------------------------------
+
+
+def _openpyxl_tokenizer() -> ModuleType:
+    """openpyxl's formula tokenizer module. It imports only ``re``, but importing it
+    through its package first imports all of openpyxl (a fifth of a second at start-up, for
+    pin and verify that never need the rest); so its file is loaded on its own when it can be
+    found, and imported the ordinary way otherwise."""
+    name = "openpyxl.formula.tokenizer"
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.find_spec("openpyxl")
+    folders = list(spec.submodule_search_locations or []) if spec else []
+    path = Path(folders[0]) / "formula" / "tokenizer.py" if folders else None
+    if path is not None and path.is_file():
+        own = importlib.util.spec_from_file_location("xlbridge_openpyxl_tokenizer", path)
+        if own is not None and own.loader is not None:
+            module = importlib.util.module_from_spec(own)
+            own.loader.exec_module(module)
+            return module
+    return importlib.import_module(name)
+
+
+_tok = _openpyxl_tokenizer()
+Token = _tok.Token
+Tokenizer = _tok.Tokenizer
+TokenizerError = _tok.TokenizerError
 
 
 class _Tokenizer(Tokenizer):
