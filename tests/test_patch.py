@@ -324,3 +324,60 @@ def test_libreoffice_opens_the_copies(book: Path, tmp_path: Path, capsys,
             assert numbers == pytest.approx(exp["coefs"][1][1:7], rel=1e-12)
         else:
             record_property("live_array_cell_shows", grids["Model"][3][1])
+
+
+def test_macro_workbook_keeps_its_project_and_custom_xml(book: Path, tmp_path: Path,
+                                                         capsys) -> None:
+    """An .xlsm with a VBA project part and a custom XML part (both made here: the bytes
+    only need to come back unchanged) keeps them byte for byte, in both kinds of copy."""
+    project = bytes(range(256)) * 40
+    custom = b'<?xml version="1.0" encoding="UTF-8"?><data xmlns="urn:example">x</data>'
+    src = tmp_path / "macro.xlsm"
+    with zipfile.ZipFile(book) as zin, zipfile.ZipFile(src, "w", zipfile.ZIP_DEFLATED) as zout:
+        for item in zin.infolist():
+            zout.writestr(item, zin.read(item.filename))
+        zout.writestr("xl/vbaProject.bin", project)
+        zout.writestr(zipfile.ZipInfo("customXml/item1.xml", (2020, 1, 2, 3, 4, 6)), custom)
+    for extra in ([], ["--values"]):
+        out = tmp_path / f"macro-copy{len(extra)}.xlsm"
+        code, text, err = run(["recalc", src, "--out", out, *extra], capsys)
+        assert code == 0, text + err
+        old, new = parts(src), parts(out)
+        assert [n for n in old if old[n] != new.get(n)] == ["xl/worksheets/sheet2.xml"]
+        with zipfile.ZipFile(src) as a, zipfile.ZipFile(out) as b:
+            for name in ("xl/vbaProject.bin", "customXml/item1.xml"):
+                ia, ib = a.getinfo(name), b.getinfo(name)
+                assert (ia.date_time, ia.compress_type, ia.CRC, ia.compress_size) == (
+                    ib.date_time, ib.compress_type, ib.CRC, ib.compress_size)
+
+
+def test_values_copy_leaves_out_the_calculation_chain(book: Path, tmp_path: Path,
+                                                      capsys) -> None:
+    """The calculation chain lists formula cells; the --values copy removes XB_ formulas,
+    so it leaves the chain out (part, relationship, content type), the live copy keeps it."""
+    chain = (b'<calcChain xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main">'
+             b'<c r="A3" i="2"/><c r="A10"/><c r="A1" i="3"/></calcChain>')
+    rel = (b'<Relationship Id="rId99" Type="http://schemas.openxmlformats.org/'
+           b'officeDocument/2006/relationships/calcChain" Target="calcChain.xml"/>')
+    override = (b'<Override PartName="/xl/calcChain.xml" ContentType="application/'
+                b'vnd.openxmlformats-officedocument.spreadsheetml.calcChain+xml"/>')
+    src = tmp_path / "chained.xlsx"
+    with zipfile.ZipFile(book) as zin, zipfile.ZipFile(src, "w", zipfile.ZIP_DEFLATED) as zout:
+        for item in zin.infolist():
+            data = zin.read(item.filename)
+            if item.filename == "xl/_rels/workbook.xml.rels":
+                data = data.replace(b"</Relationships>", rel + b"</Relationships>")
+            elif item.filename == "[Content_Types].xml":
+                data = data.replace(b"</Types>", override + b"</Types>")
+            zout.writestr(item, data)
+        zout.writestr("xl/calcChain.xml", chain)
+    live, values = tmp_path / "chained-live.xlsx", tmp_path / "chained-values.xlsx"
+    assert run(["recalc", src, "--out", live], capsys)[0] == 0
+    assert parts(live)["xl/calcChain.xml"] == chain
+    assert run(["recalc", src, "--out", values, "--values"], capsys)[0] == 0
+    new = parts(values)
+    assert "xl/calcChain.xml" not in new
+    assert b"calcChain" not in new["xl/_rels/workbook.xml.rels"]
+    assert b"calcChain" not in new["[Content_Types].xml"]
+    assert new["xl/_rels/workbook.xml.rels"] == parts(book)["xl/_rels/workbook.xml.rels"]
+    openpyxl.load_workbook(values)

@@ -5,7 +5,9 @@ Modules (import what a command needs; nothing here imports openpyxl at import ti
 ``values`` what a cell can hold (error values, date serials), ``refs`` reference text,
 ``safety`` hostile-file guards and atomic output, ``reader`` opening a workbook or CSV file
 (``workbook`` the Book base, ``xlsx`` values through python-calamine, ``csvbook`` CSV text),
-``formulas`` the formula cells of a workbook, ``writer`` copies through openpyxl.
+``formulas`` the formula cells of a workbook, ``patch`` copies that change only what must
+change (``sheetxml`` the cells of a worksheet part, ``package`` the part-by-part zip copy),
+``writer`` new workbooks through openpyxl (the copy of a CSV file).
 """
 
 from xlbridge.book.safety import BookError
