@@ -106,7 +106,9 @@ def _openpyxl_tokenizer() -> ModuleType:
             module = importlib.util.module_from_spec(own)
             own.loader.exec_module(module)
             return module
-    return importlib.import_module(name)
+    from openpyxl.formula import tokenizer
+
+    return tokenizer
 
 
 _tok = _openpyxl_tokenizer()
