@@ -17,7 +17,7 @@ import numpy as np
 
 from .dist import t_quantile
 from .errors import ModelError, ModelErrorKind
-from .result import FitResult, extrapolates, new_points
+from .result import FitResult, design_form, extrapolates, new_points
 
 RIDGE_RATIO = 1e-3
 
@@ -237,7 +237,7 @@ def _surface_optimum(res: FitResult, q: float) -> Optimum:
     else:
         kind = "saddle"
     fit_v, lo, hi = _fitted_interval(res, xs, q)
-    form = np.array([float(res.predict(xs.reshape(1, -1)).leverage[0])])
+    form = design_form(res, xs.reshape(1, -1))
     inside = not bool(extrapolates(res, xs.reshape(1, -1), form)[0])
     point = StationaryPoint(tuple(map(float, xs)), tuple(map(float, se)),
                             tuple(map(float, xs - q * se)), tuple(map(float, xs + q * se)),
@@ -328,6 +328,6 @@ def slopes(res: FitResult, at_x, level: float | None = None) -> Slopes:
             val = mean * val
         slope[:, j] = val
         se[:, j] = np.sqrt(np.einsum("ij,jk,ik->i", grad, cov, grad))
-    form = np.einsum("ij,jk,ik->i", design, res.scaled_inv, design)
+    form = design_form(res, x0)
     return Slopes(res.spec.predictors, x0, slope, se, slope - q * se, slope + q * se,
                   extrapolates(res, x0, form), level)

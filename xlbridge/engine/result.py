@@ -211,10 +211,16 @@ class FitResult:
     def std_errors(self) -> np.ndarray:
         return np.array([c.std_error for c in self.coefficients])
 
-    def predict(self, new_x, level: float | None = None) -> Prediction:
+    def predict(self, new_x, level: float | None = None, weights=None) -> Prediction:
         """Fitted mean, its confidence interval, the prediction interval of one new
         observation, leverage, and whether each point extrapolates (outside the observed
         range of any predictor or, with 2+ predictors, beyond the largest data leverage).
+
+        The new observation's variance follows the fit's error model: s^2 / w0 for a new
+        point of weight w0 (additive error; w0 = 1 unless ``weights`` are given), and
+        s^2 * fitted0^2 / w0 for percent error, whose s is a fraction of the fitted value.
+        The leverage is on the data's footing: w0 x0'(X'WX)^-1 x0, with weight w0 / fitted0^2
+        for percent error, so a point of the data, given its weight, gets the data's leverage.
 
         Parameters
         ----------
@@ -223,6 +229,10 @@ class FitResult:
             given as a 1-D array of k values).
         level : float, optional
             Confidence level of the intervals (default: the fit's level).
+        weights : float or array_like, shape (m,), optional
+            Weight of each new observation, on the scale of the fit's weights (default 1,
+            i.e. a new observation's variance is s^2, or s^2 * fitted0^2 for percent error).
+            Only a weighted fit's prediction interval and leverage depend on it.
 
         Returns
         -------
@@ -246,15 +256,15 @@ class FitResult:
         x0 = new_points(self, new_x)
         t0 = self.basis.design(x0)
         eta = t0 @ self.scaled_coef
-        form = np.einsum("ij,jk,ik->i", t0, self.scaled_inv, t0)
+        form = design_form(self, x0)
         var_m = np.einsum("ij,jk,ik->i", t0, self.scaled_cov, t0)
+        factor = variance_factor(self, eta, weights)
         s = self.stats.rmse
         q = t_quantile(self.stats.df_resid, level)
         se_m = np.sqrt(var_m)
-        se_p = np.sqrt(s * s + var_m)
-        if self.remedy.error == "percent" and not self.remedy.log:
-            # multiplicative error: a new observation's spread is rmse (the SPE) times its size
-            se_p = np.sqrt((s * eta) ** 2 + var_m)
+        se_p = np.sqrt(s * s * factor + var_m)
+        with np.errstate(divide="ignore"):
+            lev = form / factor
         lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
         fitted = eta
         if self.remedy.log:
@@ -264,7 +274,7 @@ class FitResult:
             sm = self.remedy.smearing
             fitted, lo_m, hi_m = np.exp(eta) * sm, np.exp(lo_m) * sm, np.exp(hi_m) * sm
             lo_p, hi_p = np.exp(lo_p), np.exp(hi_p)
-        return Prediction(fitted, lo_m, hi_m, lo_p, hi_p, form, extrapolates(self, x0, form),
+        return Prediction(fitted, lo_m, hi_m, lo_p, hi_p, lev, extrapolates(self, x0, form),
                           level)
 
     def equation(self, response: str | None = None) -> str:
@@ -318,6 +328,35 @@ def new_points(res: FitResult, new_x) -> np.ndarray:
         raise ModelError(f"new x has {x0.shape[-1]} columns; the model has {k} predictors",
                          ModelErrorKind.DATA)
     return x0
+
+
+def design_form(res: FitResult, x0: np.ndarray) -> np.ndarray:
+    """x0'(X'WX)^-1 x0 for each row of ``x0`` (computed in the scaled basis): the leverage
+    of a new point of weight 1, and the distance measure that decides extrapolation."""
+    t0 = res.basis.design(x0)
+    return np.einsum("ij,jk,ik->i", t0, res.scaled_inv, t0)
+
+
+def variance_factor(res: FitResult, eta: np.ndarray, weights=None) -> np.ndarray:
+    """Variance of a new observation in units of s^2 under the fit's error model: 1 / w0,
+    times fitted0^2 for percent error (``eta`` is the fitted value on the fit's scale);
+    ``weights`` w0 default to 1 and must be positive."""
+    m = len(eta)
+    if weights is None:
+        w0 = np.ones(m)
+    else:
+        try:
+            w0 = np.broadcast_to(np.asarray(weights, dtype=float).ravel(), (m,)).copy()
+        except (TypeError, ValueError):
+            raise ModelError(f"weights of the new points must be one positive number or one "
+                             f"per point ({m})", ModelErrorKind.DATA) from None
+        if not np.all(np.isfinite(w0) & (w0 > 0)):
+            raise ModelError("weights of the new points must be positive numbers",
+                             ModelErrorKind.DATA)
+    factor = 1.0 / w0
+    if res.remedy.error == "percent":
+        factor = factor * eta * eta
+    return factor
 
 
 def extrapolates(res: FitResult, x0: np.ndarray, form: np.ndarray) -> np.ndarray:
