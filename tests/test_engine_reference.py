@@ -45,7 +45,9 @@ def test_against_statsmodels_ols(degree):
          np.sqrt(ref.scale)], rtol=1e-9)
     np.testing.assert_allclose(s.f_p_value, ref.f_pvalue, rtol=1e-6, atol=1e-300)
     assert s.df_resid == ref.df_resid and s.n_params == degree + 1
-    np.testing.assert_allclose(s.cv_percent, 100 * np.sqrt(ref.scale) / y.mean(), rtol=1e-12)
+    np.testing.assert_allclose(s.rmse_percent, 100 * np.sqrt(ref.scale) / y.mean(), rtol=1e-12)
+    # source: statsmodels condition_number (sqrt of the eigenvalue ratio of X'X)
+    np.testing.assert_allclose(s.cond_number_raw, ref.condition_number, rtol=1e-6)
 
 
 def test_no_intercept_matches_statsmodels_uncentered():
@@ -191,9 +193,9 @@ def test_to_dict_keys():
     assert set(d["coefficients"][0]) == {"term", "estimate", "std_error", "t_ratio", "p_value",
                                          "ci_lower", "ci_upper", "vif", "vif_centered"}
     assert set(d["stats"]) == {
-        "n_used", "n_params", "df_resid", "sse", "sst", "r2", "adj_r2", "rmse", "cv_percent",
-        "f_stat", "f_p_value", "aic", "bic", "press", "pred_r2", "cond_number", "max_vif",
-        "top_term_p_value", "fit_space"}
+        "n_used", "n_params", "df_resid", "sse", "sst", "r2", "adj_r2", "rmse", "rmse_percent",
+        "f_stat", "f_p_value", "aic", "bic", "press", "pred_r2", "cond_number", "cond_number_raw",
+        "max_vif", "top_term_p_value", "fit_space"}
     assert set(d["unit_stats"]) == {"fit_space", "n", "n_params", "df", "see", "cv", "r2_unit",
                                     "bias_percent", "spe"}
     import json

@@ -98,7 +98,7 @@ def test_stats_match_statsmodels_and_count_the_dropped_rows():
             "f_stat": m.fvalue, "f_p_value": m.f_pvalue, "aic": m.aic, "bic": m.bic,
             "press": press, "pred_r2": 1 - press / m.centered_tss,
             # handbook: coefficient of variation of the residual standard deviation
-            "cv_percent": 100 * math.sqrt(m.mse_resid) / price[keep].mean(),
+            "rmse_percent": 100 * math.sqrt(m.mse_resid) / price[keep].mean(),
             "top_term_p_value": m.pvalues[-1], "n_params": 3.0}
     for key, value in want.items():
         assert d[key] == pytest.approx(float(value), rel=1e-8), key

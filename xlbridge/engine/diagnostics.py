@@ -10,7 +10,8 @@ Thresholds (documented, and named in each check's note):
 - collinearity: centered VIF > 10 is a ``problem``; raw VIF > 10 with centered VIFs <= 10 is
   ``watch`` (interpret the centered form) (VIF 10: common practice);
 - extrapolation risk: largest leverage > 0.5 is ``watch``, > 0.9 ``problem``;
-- rows per coefficient: >= 10 ``ok``, 5 to 10 ``watch``, < 5 ``problem`` (common practice).
+- rows per coefficient: >= 10 ``ok``, 5 to 10 ``watch``, < 5 ``problem`` (common practice);
+- lack of fit (pure error, when x rows repeat): the p-value thresholds above.
 Rows flagged in XB_ROWDIAG: outlier (Bonferroni p < 0.05), high leverage (h > 2p/n, common
 practice), influential (Cook's D > 4/n).
 """
@@ -22,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .dist import t_pvalue
+from .dist import f_pvalue, t_pvalue
 from .result import FitResult
 from .solve import monomials
 
@@ -198,6 +199,46 @@ def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], 
     return tuple(out)
 
 
+@dataclass(frozen=True)
+class LackOfFit:
+    """Pure-error lack-of-fit F test: the residual sum of squares split into pure error
+    (scatter of y within each distinct x row) and lack of fit (the rest)."""
+
+    f_stat: float
+    p_value: float
+    df_lack: int  # distinct x rows - parameters
+    df_pure: int  # rows - distinct x rows
+    ss_lack: float
+    ss_pure: float
+
+
+def lack_of_fit(res: FitResult) -> LackOfFit | None:
+    """F = (SS_lof / (m - p)) / (SS_pe / (n - m)) on F(m - p, n - m), with m distinct x rows
+    among the n rows used and p coefficients; SS_pe is the (weighted) scatter of y about
+    each distinct x row's (weighted) mean, on the fit's scale (ln y for log fits), and
+    SS_lof = SSE - SS_pe. None when no x row repeats or m <= p (nothing to test)."""
+    n, p = res.stats.n_used, res.stats.n_params
+    _, groups = np.unique(res.x, axis=0, return_inverse=True)
+    groups = np.asarray(groups).ravel()
+    m = int(groups.max()) + 1
+    if m == n or m <= p:
+        return None
+    w = np.ones(n) if res.weights is None else res.weights
+    # y minus its group mean equals e minus the group's mean residual (one fitted value per
+    # x row); residuals avoid the cancellation of subtracting large y values
+    e = res.residuals
+    e_bar = np.bincount(groups, w * e, m) / np.bincount(groups, w, m)
+    d = e - e_bar[groups]
+    ss_pure = float(np.sum(w * d * d))
+    ss_lack = max(res.stats.sse - ss_pure, 0.0)
+    df_lack, df_pure = m - p, n - m
+    if ss_pure > 0:
+        f = (ss_lack / df_lack) / (ss_pure / df_pure)
+    else:
+        f = math.inf if ss_lack > 0 else math.nan
+    return LackOfFit(f, f_pvalue(f, df_lack, df_pure), df_lack, df_pure, ss_lack, ss_pure)
+
+
 def durbin_watson(e: np.ndarray) -> float:
     return float(np.sum(np.diff(e) ** 2) / np.sum(e * e)) if np.any(e) else math.nan
 
@@ -214,7 +255,8 @@ def checks(res: FitResult) -> tuple[Check, ...]:
     -------
     tuple of Check
         Normality, constant variance (Breusch-Pagan, White), independence, outliers,
-        influence, collinearity, extrapolation risk and rows per coefficient, each with its
+        influence, collinearity, extrapolation risk, lack of fit (pure error) and rows per
+        coefficient, each with its
         statistic, p-value (NaN where none), verdict ('ok', 'watch', 'problem' or 'n/a')
         and a note.
 
@@ -234,6 +276,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
     influence (Cook's distance): problem
     collinearity (VIF): watch
     extrapolation risk: watch
+    lack of fit (pure error): n/a
     rows per coefficient: problem
     """
     n, p = res.stats.n_used, res.stats.n_params
@@ -324,9 +367,26 @@ def checks(res: FitResult) -> tuple[Check, ...]:
                      "outside it (or, with 2+ predictors, beyond the largest leverage) are "
                      "extrapolation and are flagged"))
 
+    out.append(_lack_of_fit_check(res, scale))
+
     ratio = n / p
     verdict = "ok" if ratio >= 10 else ("watch" if ratio >= 5 else "problem")
     out.append(Check("rows per coefficient", ratio, math.nan, verdict,
                      f"{n} rows, {p} coefficients; 10 or more per coefficient is a common rule "
                      "of thumb"))
     return tuple(out)
+
+
+def _lack_of_fit_check(res: FitResult, scale: str) -> Check:
+    name = "lack of fit (pure error)"
+    lof = lack_of_fit(res)
+    if lof is None:
+        m = len(np.unique(res.x, axis=0))
+        why = ("no repeated x values" if m == res.stats.n_used else
+               f"{m} distinct x values for {res.stats.n_params} coefficients")
+        return Check(name, math.nan, math.nan, "n/a", f"not available: {why}")
+    weighted = "weighted " if res.weights is not None else ""
+    return Check(name, lof.f_stat, lof.p_value, _p_verdict(lof.p_value),
+                 f"F of lack of fit against {weighted}pure error (scatter within repeated x "
+                 f"values){scale}, F({lof.df_lack}, {lof.df_pure}); ok at p >= 0.05, "
+                 "otherwise the model's form misses the shape of the data")

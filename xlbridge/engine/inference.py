@@ -106,8 +106,7 @@ def build(
         else:
             f = math.nan
         fp = f_pvalue(f, df_model, df)
-        ybar = float(np.mean(y))
-        cv = 100.0 * rmse / ybar if ybar != 0 else math.nan
+        spread_pct = rmse_percent(rmse, float(np.mean(y)), remedy)
         llf = -0.5 * n * (math.log(2 * math.pi) + math.log(sse / n) + 1) if sse > 0 else math.inf
         if w is not None and math.isfinite(llf):
             llf += 0.5 * float(np.sum(np.log(w)))
@@ -121,8 +120,8 @@ def build(
     nonint = [c.vif for c in coefs if c.term != "intercept"]
     stats = FitStats(
         n_used=n, n_params=p, df_resid=df, sse=sse, sst=sst, r2=r2, adj_r2=adj, rmse=rmse,
-        cv_percent=cv, f_stat=f, f_p_value=fp, aic=aic, bic=bic, press=press,
-        pred_r2=pred_r2, cond_number=core.cond,
+        rmse_percent=spread_pct, f_stat=f, f_p_value=fp, aic=aic, bic=bic, press=press,
+        pred_r2=pred_r2, cond_number=core.cond, cond_number_raw=raw_condition(core, x, w),
         max_vif=float(np.max(nonint)) if nonint else math.nan, top_term_p_value=top,
     )
 
@@ -156,6 +155,36 @@ def build(
         scaled_inv=core.inv_scaled, scaled_cov=cov_scaled, weights=w,
         max_data_leverage_form=float(hform.max()), remedy=remedy, x=x, y=y,
     )
+
+
+def rmse_percent(rmse: float, ybar: float, remedy: Remedy) -> float:
+    """The error's spread as a percent of y, in y's units: 100 rmse / mean(y) for additive
+    error, 100 rmse for percent error (rmse is already a fraction of the fitted value) and
+    100 sqrt(exp(rmse^2) - 1) for a fit of ln y (the lognormal's SD / mean); NaN for log and
+    percent error together, where no single figure describes the spread."""
+    if remedy.log and remedy.error == "percent":
+        return math.nan
+    if remedy.log:
+        return 100.0 * math.sqrt(math.expm1(rmse * rmse)) if math.isfinite(rmse) else math.nan
+    if remedy.error == "percent":
+        return 100.0 * rmse
+    return 100.0 * rmse / ybar if ybar != 0 else math.nan
+
+
+def raw_condition(core: Core, x: np.ndarray, w: np.ndarray | None) -> float:
+    """2-norm condition number of the raw design sqrt(W) X (columns x^m, not centered or
+    scaled), from the scaled basis: sqrt(W) X = (sqrt(W) T) V with V = raw_in_scaled, so its
+    singular values are those of R V where R'R = T'WT (p x p work, not n x p)."""
+    v = core.basis.raw_in_scaled()
+    try:
+        r = np.linalg.cholesky(core.gram).T
+        sv = np.linalg.svd(r @ v, compute_uv=False)
+    except np.linalg.LinAlgError:  # T'WT too close to singular for Cholesky: use the rows
+        a = monomials(x, core.basis.powers)
+        if w is not None:
+            a *= np.sqrt(w)[:, None]
+        sv = np.linalg.svd(a, compute_uv=False)
+    return float(sv[0] / sv[-1]) if sv[-1] > 0 else math.inf
 
 
 def robust_cov(core: Core, x: np.ndarray, w: np.ndarray | None, kind: str) -> np.ndarray:

@@ -17,8 +17,8 @@ from .unitstats import fit_unit_stats, relevant_range
 COEF_FIELDS = ("term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower", "ci_upper",
                "vif", "vif_centered")
 STAT_FIELDS = ("n_used", "n_params", "df_resid", "sse", "sst", "r2", "adj_r2", "rmse",
-               "cv_percent", "f_stat", "f_p_value", "aic", "bic", "press", "pred_r2",
-               "cond_number", "max_vif", "top_term_p_value")
+               "rmse_percent", "f_stat", "f_p_value", "aic", "bic", "press", "pred_r2",
+               "cond_number", "cond_number_raw", "max_vif", "top_term_p_value")
 
 
 def plain(v):
@@ -77,8 +77,12 @@ class Coefficient:
 
 @dataclass(frozen=True)
 class FitStats:
-    """Fit statistics; aic/bic follow statsmodels' OLS/WLS (llf from the Gaussian likelihood,
-    k = n_params); r2 uses the uncentered total sum of squares when there is no intercept."""
+    """Fit statistics (definitions and scales in docs/statistics.md); aic/bic follow
+    statsmodels' OLS/WLS (llf from the Gaussian likelihood, k = n_params); r2 uses the
+    uncentered total sum of squares when there is no intercept; ``rmse_percent`` is the
+    error's spread as a percent of y in y's units (100 rmse / mean y; 100 rmse for percent
+    error; 100 sqrt(exp(rmse^2) - 1) for log fits); ``cond_number`` is that of the centered,
+    unit-column basis the fit is solved in, ``cond_number_raw`` that of the raw design."""
 
     n_used: int
     n_params: int
@@ -88,7 +92,7 @@ class FitStats:
     r2: float
     adj_r2: float
     rmse: float
-    cv_percent: float
+    rmse_percent: float
     f_stat: float
     f_p_value: float
     aic: float
@@ -96,6 +100,7 @@ class FitStats:
     press: float
     pred_r2: float
     cond_number: float
+    cond_number_raw: float
     max_vif: float
     top_term_p_value: float
 
