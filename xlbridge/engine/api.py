@@ -13,6 +13,8 @@ from .result import FitResult, Remedy
 from .solve import solve
 from .terms import parse_model
 
+#: Where the statistical conventions are written down (named in notes that rely on one).
+STATS_DOC = "see docs/statistics.md"
 SE_TYPES = ("ols", "hc0", "hc1", "hc2", "hc3")
 ERROR_TYPES = ("additive", "percent")
 
@@ -220,6 +222,10 @@ def fit(
 
 def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, error, yv):
     notes: list[str] = []
+    if wu is not None:
+        notes.append("weighted fit: rmse is the error SD of an observation of weight 1, and "
+                     "prediction intervals assume a new observation of weight 1 unless its "
+                     f"weight is given; checks use sqrt(w)-scaled residuals ({STATS_DOC})")
     if log:
         if np.any(yu <= 0):
             row = int(np.argmax(yv <= 0)) + 1
@@ -232,15 +238,19 @@ def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, erro
         core, wu, iterations = _percent_error_fit(xu, yu, wu, spec, core)
         notes.append(f"multiplicative (percent) error fit: weights 1/fitted^2, converged in "
                      f"{iterations} reweighting steps; rmse is the standard percent error as "
-                     "a fraction of the fitted value")
+                     "a fraction of the fitted value, so a new observation's prediction "
+                     f"interval uses rmse x fitted ({STATS_DOC})")
     smearing = 1.0
     if log:
         smearing = float(np.mean(np.exp(core.residuals)))
-        notes.append(f"fitted on ln(y): coefficients and fit statistics are on the log scale; "
-                     f"predictions are back-transformed with Duan's smearing factor {smearing:.6g}")
+        notes.append(f"fitted on ln(y): coefficients and fit statistics are on the log scale "
+                     "(rmse_percent is in units of y); the mean and its interval are "
+                     f"back-transformed with Duan's smearing factor {smearing:.6g}, the "
+                     f"prediction interval without it ({STATS_DOC})")
     if se != "ols":
         notes.append(f"standard errors, tests and intervals use the {se.upper()} "
-                     "heteroscedasticity-consistent covariance")
+                     "heteroscedasticity-consistent covariance with t(df) and F(q, df) "
+                     f"reference distributions ({STATS_DOC})")
     remedy = Remedy(se=se, log=log, error=error, smearing=smearing, iterations=iterations,
                     notes=tuple(notes))
     return inference.build(spec, core, xu, yu, wu, level, used, n_dropped, response, remedy)
