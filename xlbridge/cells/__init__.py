@@ -14,17 +14,8 @@ and no files here. The parts, in the order a worksheet call goes through them:
 - ``errors``: ``CellError`` with its ``kind``, and one ``xlbridge: ...`` cell per exception.
 """
 
-from .cer import (
-    CANDIDATE_COLUMNS,
-    baseyear_cells,
-    candidates_cells,
-    candidates_table,
-    card_cells,
-    learning_cells,
-    learning_table,
-    plevels_cells,
-    plevels_table,
-)
+from typing import TYPE_CHECKING
+
 from .errors import (
     Cell,
     CellError,
@@ -33,28 +24,6 @@ from .errors import (
     error_message,
     guarded,
     run_guarded,
-)
-from .groups import groups_cells, groups_fit, groups_table
-from .models import (
-    CHECK_COLUMNS,
-    DEGREE_COLUMNS,
-    OPTIMUM_COLUMNS,
-    ROW_COLUMNS,
-    FitFigure,
-    PlotInput,
-    checks_cells,
-    checks_table,
-    degrees_cells,
-    degrees_table,
-    optimum_cells,
-    optimum_table,
-    plot_figure,
-    plot_input,
-    rows_cells,
-    rows_table,
-    scan_cells,
-    slope_cells,
-    slope_table,
 )
 from .options import Options, OptionsError, option_keys, options_help, parse_options
 from .prepare import FitInput, fit_cells, fit_prepared, prepare_fit
@@ -88,6 +57,41 @@ from .values import (
     options_value,
 )
 
+if TYPE_CHECKING:  # for type checkers and editors; at run time see __getattr__
+    from .cer import (
+        CANDIDATE_COLUMNS,
+        baseyear_cells,
+        candidates_cells,
+        candidates_table,
+        card_cells,
+        learning_cells,
+        learning_table,
+        plevels_cells,
+        plevels_table,
+    )
+    from .groups import groups_cells, groups_fit, groups_table
+    from .models import (
+        CHECK_COLUMNS,
+        DEGREE_COLUMNS,
+        OPTIMUM_COLUMNS,
+        ROW_COLUMNS,
+        FitFigure,
+        PlotInput,
+        checks_cells,
+        checks_table,
+        degrees_cells,
+        degrees_table,
+        optimum_cells,
+        optimum_table,
+        plot_figure,
+        plot_input,
+        rows_cells,
+        rows_table,
+        scan_cells,
+        slope_cells,
+        slope_table,
+    )
+
 __all__ = [
     "BLANK", "BOOL", "CHECK_COLUMNS", "COEF_COLUMNS", "DEGREE_COLUMNS", "ERROR", "NONFINITE",
     "OK", "OPTIMUM_COLUMNS", "PREDICT_COLUMNS", "ROW_COLUMNS", "TEXT",
@@ -104,3 +108,29 @@ __all__ = [
 ]
 __all__ += ["CANDIDATE_COLUMNS", "baseyear_cells", "candidates_cells", "candidates_table",
             "card_cells", "learning_cells", "learning_table", "plevels_cells", "plevels_table"]
+
+# the tables of the other functions, CER tables and grouped fits load on first use: one fit from the
+# command line does not need them (nor the engine parts they import)
+_LAZY = {**dict.fromkeys(("groups_cells", "groups_fit", "groups_table"), "groups"),
+         **dict.fromkeys(("CANDIDATE_COLUMNS", "baseyear_cells", "candidates_cells",
+                          "candidates_table", "card_cells", "learning_cells", "learning_table",
+                          "plevels_cells", "plevels_table"), "cer"),
+         **dict.fromkeys(("CHECK_COLUMNS", "DEGREE_COLUMNS", "OPTIMUM_COLUMNS", "ROW_COLUMNS",
+                          "FitFigure", "PlotInput", "checks_cells", "checks_table",
+                          "degrees_cells", "degrees_table", "optimum_cells", "optimum_table",
+                          "plot_figure", "plot_input", "rows_cells", "rows_table",
+                          "scan_cells", "slope_cells", "slope_table"), "models")}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'xlbridge.cells' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
