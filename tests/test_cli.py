@@ -231,7 +231,7 @@ def test_console_script_and_start_up_imports(book: Path) -> None:
     """A whole process, as users and the benchmark run it: output, exit code, and which
     modules were imported (none of the heavy libraries or xlbridge parts one fit does not
     use: xlwings, pandas, scipy.stats/sparse/optimize, openpyxl, matplotlib, rich, the
-    grouped fits, degree scan, diagnostics, CER comparisons, runner, figures, report)."""
+    grouped fits, degree scan, diagnostics, CER tables, runner, figures, report)."""
     code = (
         "import sys, io, contextlib\n"
         "from xlbridge.cli import main\n"
@@ -241,8 +241,8 @@ def test_console_script_and_start_up_imports(book: Path) -> None:
         " '--format', 'json'])\n"
         "heavy = sorted(m for m in ('xlwings', 'pandas', 'scipy.stats', 'openpyxl',"
         " 'matplotlib', 'rich', 'scipy.sparse', 'scipy.optimize', 'xlbridge.engine.groups',"
-        " 'xlbridge.engine.scan', 'xlbridge.engine.diagnostics', 'xlbridge.engine.candidates',"
-        " 'xlbridge.engine.learning', 'xlbridge.cells.models', 'xlbridge.cells.groups',"
+        " 'xlbridge.engine.scan', 'xlbridge.engine.diagnostics', 'xlbridge.cells.models',"
+        " 'xlbridge.cells.groups', 'xlbridge.cells.cer',"
         " 'xlbridge.runner', 'xlbridge.plots', 'xlbridge.report') if m in sys.modules)\n"
         "print(rc, heavy)\n"
     )
