@@ -167,7 +167,7 @@ def test_base_year_costs_are_the_index_ratio():
     index = [["year", "index"], [2020.0, 100.0], [2021.0, 104.0], [2022.0, 110.0]]
     t = ws.XB_BASEYEAR(["cost", 100.0, None, 250.0], ["year", 2020.0, 2021.0, 2021.0], index,
                        "base_year=2022")
-    assert t[0] == ["cost in 2022 prices"]
+    assert t[0] == ["cost_2022"]
     assert t[1][0] == pytest.approx(100.0 * 110 / 100) and t[2] == [""]
     assert t[3][0] == pytest.approx(250.0 * 110 / 104)
 

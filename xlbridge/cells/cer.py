@@ -126,7 +126,7 @@ def candidates_fit(y: Any, drivers: Any, options: Any = None, *,
     def compute() -> CandidateTable:
         return run_engine(lambda: compare_candidates(
             inp.y, inp.x, names, forms=o.forms, methods=o.methods, max_drivers=o.max_drivers,
-            alpha=1 - o.level, vif_limit=o.vif_limit, progress=progress), inp.header_rows)
+            alpha=float(f"{1 - o.level:.12g}"), vif_limit=o.vif_limit, progress=progress), inp.header_rows)
 
     return SCAN_CACHE.get_or_compute(key, compute), o
 
@@ -252,7 +252,7 @@ def baseyear_cells(costs: Any, years: Any, index: Any, options: Any = None) -> T
                                           ix.values[keep, 1], opts.base_year), head)
     rows: list[list[Any]] = []
     if c.names is not None and opts.header:
-        rows.append([f"{c.names[0]} in {opts.base_year} prices"])
+        rows.append([f"{c.names[0]}_{opts.base_year}"])
     rows += [[v] for v in out]
     return finish_table(rows)
 

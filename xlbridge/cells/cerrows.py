@@ -12,7 +12,8 @@ from ..engine.cerresult import INTERVAL_SOURCES
 from ..engine.unitstats import UnitStats, fit_unit_stats, relevant_range
 
 __all__ = ["CER_COEF_COLUMNS", "base_year_text", "cer_coef_rows", "cer_predict_rows",
-           "cer_stats_rows", "model_label", "range_rows", "unit_rows", "with_base_year"]
+           "cer_stats_rows", "fit_unit_rows", "model_label", "model_title", "range_rows",
+           "rows_used", "unit_rows", "with_base_year"]
 
 CER_COEF_COLUMNS = ("term", "role", "estimate", "std_error", "t_ratio", "p_value", "ci_lower",
                     "ci_upper")
@@ -23,6 +24,16 @@ Rows = list[list[Any]]
 def model_label(res: CerResult) -> str:
     """``'power CER by mupe'``."""
     return f"{res.form} CER by {res.method}"
+
+
+def model_title(res: FitResult | CerResult) -> str:
+    """The model as titles name it: ``'2'``, ``'surface'``, ``'power CER by mupe'``."""
+    return model_label(res) if isinstance(res, CerResult) else res.spec.spec
+
+
+def rows_used(res: FitResult | CerResult) -> int:
+    """Rows the fit used."""
+    return int(res.unit.n if isinstance(res, CerResult) else res.stats.n_used)
 
 
 def base_year_text(base_year: int | None) -> str:
@@ -91,7 +102,8 @@ def cer_stats_rows(res: CerResult, base_year: int | None) -> tuple[Rows, list[st
                  ["stop_rule", d["stop_rule"]]]
     elif res.method == "zmpe":
         rows += [["sum_percent_errors", d["sum_percent_errors"]]]
-    rows.append(["max_vif", res.max_vif])
+    if len(res.drivers) > 1:
+        rows.append(["max_vif", res.max_vif])
     rows += range_rows(relevant_range(res.x, res.drivers))
     rows.append(["level", res.level])
     rows.append(["base_year", base_year if base_year is not None else "not stated"])

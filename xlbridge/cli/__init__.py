@@ -3,7 +3,7 @@
 Each command is one entry of :data:`COMMANDS` (name, summary, example, options, run); a
 later command is added by adding an entry.  Shared options and output helpers live in
 :mod:`xlbridge.cli.common`; the commands in one module per group (``fitting``, ``runner``,
-``figures``, ``groups``).
+``figures``, ``groups``, ``cer``).
 
 Exit codes: 0 success, 1 drift or model failure, 2 usage or input error
 (:func:`xlbridge.cli.common.exit_code` maps every error class and kind to one).  Messages
@@ -20,7 +20,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import NoReturn
 
-from . import figures, fitting, groups, runner
+from . import cer, figures, fitting, groups, runner
 from .common import EXIT_OK, EXIT_USAGE, REF_HELP, closest, exit_code, info, message_of
 
 __all__ = ["COMMANDS", "Command", "build_parser", "main"]
@@ -82,6 +82,21 @@ COMMANDS: list[Command] = [
     Command("groups", "fit the same model separately for every group (one row per group)",
             "xlbridge groups sales.xlsx --group Data!A:A --y Data!C:C --x Data!B:B --model 2",
             groups.configure_groups, groups.run_groups),
+    Command("card", "the one-screen review card of a cost-estimating relationship (CER)",
+            "xlbridge card steel.xlsx --y Data!C:C --x Data!B:B --model power "
+            "--options \"method=mupe; base_year=2024\"",
+            cer.configure_card, cer.run_card),
+    Command("plevels", "percentiles of new estimates (P10..P90) and their distribution",
+            "xlbridge plevels steel.xlsx --y Data!C:C --x Data!B:B --model power "
+            "--options \"method=mupe; levels=10,50,80\" --new-x Quote!A2:A5",
+            cer.configure_plevels, cer.run_plevels),
+    Command("candidates", "compare candidate CERs (forms x methods x drivers), ranked",
+            "xlbridge candidates steel.xlsx --y Data!C:C --drivers Data!B:D "
+            "--options \"forms=power,linear; methods=log,mupe; max_drivers=2\"",
+            cer.configure_candidates, cer.run_candidates),
+    Command("learning", "fit a learning curve from unit or lot costs; cost units and lots",
+            "xlbridge learning lots.xlsx --units Lots!A:B --costs Lots!C:C --at Lots!E2:F3",
+            cer.configure_learning, cer.run_learning),
     Command("demo", "run the bundled example workbooks end to end (recalc, figures, reports)",
             "xlbridge demo --out xlbridge-demo",
             figures.configure_demo, figures.run_demo),

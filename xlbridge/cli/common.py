@@ -18,9 +18,10 @@ from pathlib import Path
 from typing import Any, TextIO
 
 __all__ = ["EXIT_OK", "EXIT_FAIL", "EXIT_USAGE", "REF_HELP", "CommandError", "UsageError",
-           "Failure", "Fitted", "Progress", "add_data_options", "add_output_options",
-           "as_failure", "as_usage", "choice", "closest", "csv_text", "emit", "emit_tables",
-           "exit_code", "fit_from_args", "info", "json_text", "message_of", "open_book",
+           "Failure", "Fitted", "Progress", "add_base_year_options", "add_data_options",
+           "add_output_options", "as_failure", "as_usage", "base_year_y", "choice", "closest",
+           "csv_text", "emit", "emit_tables",
+           "exit_code", "fit_from_args", "info", "warn", "json_text", "message_of", "open_book",
            "read_points", "read_ref", "render_table", "resolve", "xlsx_copy"]
 
 EXIT_OK, EXIT_FAIL, EXIT_USAGE = 0, 1, 2
@@ -164,8 +165,9 @@ def add_data_options(p: argparse.ArgumentParser, *, model_required: bool = True)
     p.add_argument("--y", required=True, metavar="REF", help="cells of the response")
     p.add_argument("--x", required=True, metavar="REF", help="cells of the predictor(s)")
     p.add_argument("--model", required=model_required, metavar="M",
-                   help="degree 1-10, 'surface', 'linear', 'interact', or terms such as "
-                        "'size, size^2'")
+                   help="degree 1-10, 'surface', 'linear', 'interact', terms such as "
+                        "'size, size^2', or a CER form 'power', 'factor', 'exponential' "
+                        "(with method= in --options)")
     p.add_argument("--options", default=None, metavar="TEXT",
                    help="key=value pairs separated by ';' as in the worksheet functions, "
                         "e.g. 'level=0.9; intercept=no'")
@@ -271,6 +273,11 @@ def info(text: str, stream: TextIO | None = None) -> None:
     print(text, file=stream or sys.stderr)
 
 
+def warn(text: str) -> None:
+    """One ``xlbridge: warning: ...`` line on stderr."""
+    info("xlbridge: warning: " + " ".join(text.split()))
+
+
 class Progress:
     """A rich progress bar on a terminal for long runs; nothing otherwise."""
 
@@ -278,15 +285,16 @@ class Progress:
         self.what = what
         self.bar: Any = None
         self.task: Any = None
-        self.enabled = sys.stdout.isatty() and sys.stderr.isatty()
+        self.enabled = sys.stderr.isatty()  # the bar goes to stderr; stdout may be a file
 
     def __call__(self, done: int, total: int, label: str) -> None:
         if not self.enabled or total < 10:
             return
         if self.bar is None:
+            from rich.console import Console
             from rich.progress import Progress as Bar
 
-            self.bar = Bar(transient=True)
+            self.bar = Bar(transient=True, console=Console(stderr=True))
             self.bar.start()
             self.task = self.bar.add_task(self.what, total=total)
         self.bar.update(self.task, completed=done, description=f"{self.what} {label}")
@@ -362,17 +370,53 @@ def fit_from_args(args: argparse.Namespace, model: Any = None) -> Fitted:
     y_area, y = read_ref(book, args.y, "y", areas[0])
     x_area, x = read_ref(book, args.x, "x", areas[1])
     w = read_ref(book, args.weights, "weights", areas[2])[1] if len(areas) > 2 else None
+    y, options = base_year_y(args, book, sheet, y)
     from xlbridge.engine import parse_model
+    from xlbridge.engine.cer import is_form
 
     with as_usage():
-        inp = cells.prepare_fit(y, x, args.model if model is None else model, args.options,
+        inp = cells.prepare_fit(y, x, args.model if model is None else model, options,
                                 weights=w)
-        # a model text that cannot be read is a usage error, not a failed fit
-        parse_model(inp.model, inp.x.shape[1], inp.names,
-                    intercept=bool(inp.options.fit_kwargs().get("intercept", True)))
+        # a model text that cannot be read is a usage error, not a failed fit (a CER form
+        # is not a term list: the engine checks it with its method)
+        if is_form(inp.model) and inp.options.method is None:
+            raise UsageError(f"--model {inp.model} is a cost-estimating-relationship form: "
+                             "give its method in --options, e.g. method=mupe (log, mupe, "
+                             "zmpe or ols)")
+        if not is_form(inp.model):
+            parse_model(inp.model, inp.x.shape[1], inp.names,
+                        intercept=bool(inp.options.fit_kwargs().get("intercept", True)))
     with as_failure():
         result = cells.fit_prepared(inp)
     return Fitted(book, y_area, x_area, inp, result)
+
+
+def add_base_year_options(p: argparse.ArgumentParser) -> None:
+    """--years, --index: bring the costs (--y) to the options' base_year before fitting."""
+    p.add_argument("--years", default=None, metavar="REF",
+                   help="the year of each cost (with --index and base_year=YYYY in --options)")
+    p.add_argument("--index", default=None, metavar="REF",
+                   help="the price index: two columns, year and index value; the costs are "
+                        "converted to the prices of the options' base_year before fitting")
+
+
+def base_year_y(args: argparse.Namespace, book: Any, sheet: str | None, y: Any
+                ) -> tuple[Any, Any]:
+    """(y, options): with --years and --index, y in the prices of the options' base_year
+    (cells.baseyear_cells, so the response is named with its year); else y unchanged."""
+    years, index = getattr(args, "years", None), getattr(args, "index", None)
+    if years is None and index is None:
+        return y, args.options
+    if years is None or index is None:
+        raise UsageError("give both --years REF and --index REF (and base_year=YYYY in "
+                         "--options) to bring the costs to one year's prices")
+    from xlbridge import cells
+
+    areas = resolve(book, [("years", years), ("index", index)], sheet)
+    yr = read_ref(book, years, "years", areas[0])[1]
+    ix = read_ref(book, index, "index", areas[1])[1]
+    with as_usage():
+        return cells.baseyear_cells(y, yr, ix, args.options), args.options
 
 
 def read_points(f: Fitted, args: argparse.Namespace, option: str, ref: str

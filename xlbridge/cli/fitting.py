@@ -7,6 +7,7 @@ import argparse
 
 from .common import (
     EXIT_OK,
+    add_base_year_options,
     add_data_options,
     add_output_options,
     as_failure,
@@ -30,11 +31,13 @@ FORMATS = ("table", "json", "csv", "xlsx")
 
 def configure_fit(p: argparse.ArgumentParser) -> None:
     add_data_options(p)
+    add_base_year_options(p)
     add_output_options(p, FORMATS)
 
 
 def run_fit(args: argparse.Namespace) -> int:
     from xlbridge import cells
+    from xlbridge.cells.cerrows import model_title, rows_used
     from xlbridge.cells.tables import split_notes
 
     f = fit_from_args(args)
@@ -51,13 +54,13 @@ def run_fit(args: argparse.Namespace) -> int:
     elif args.format == "xlsx":
         src = f"{f.y_area.label()} on {f.x_area.label()}"
         xlsx_copy(f.book, args.out, args.force, "xlbridge fit", [
-            (f"xlbridge fit of {src}, model {res.spec.spec}", [["equation", equation]]),
+            (f"xlbridge fit of {src}, model {model_title(res)}", [["equation", equation]]),
             ("coefficients", cells.coef_table(res, opts)),
             ("statistics", cells.stats_table(res, opts))])
     else:
         head = (f"xlbridge fit: {f.y_area.label()} on {f.x_area.label()} in "
-                f"{f.book.path.name}, model {res.spec.spec}\n"
-                f"rows used {res.stats.n_used}, dropped {res.n_dropped}\n\n")
+                f"{f.book.path.name}, model {model_title(res)}\n"
+                f"rows used {rows_used(res)}, dropped {res.n_dropped}\n\n")
         coef_rows, coef_notes = split_notes(coefs)
         stat_rows, notes = split_notes(stats)
         text = (head + render_table(coef_rows) + "\n\n" + render_table(stat_rows) + "\n\n"
@@ -77,6 +80,7 @@ def configure_predict(p: argparse.ArgumentParser) -> None:
 def run_predict(args: argparse.Namespace) -> int:
     from xlbridge import cells
     from xlbridge.cells import PREDICT_COLUMNS
+    from xlbridge.cells.cerrows import model_title
 
     f = fit_from_args(args)
     nx_area, new_x = read_points(f, args, "new-x", args.new_x)
@@ -87,7 +91,9 @@ def run_predict(args: argparse.Namespace) -> int:
     if args.format == "json":
         rows = [{k: (None if v == "" else v) for k, v in zip(PREDICT_COLUMNS, r)}
                 for r in table[1:]]
-        doc = {"model": f.result.to_dict()["model"], "level": f.result.level,
+        full = f.result.to_dict()
+        model = full.get("model") or {k: full[k] for k in ("form", "method", "equation")}
+        doc = {"model": model, "level": f.result.level,
                "new_x": nx_area.label(), "predictions": rows}
         emit(json_text(doc), args.out, args.force, [f.book.path])
     elif args.format == "csv":
@@ -95,10 +101,10 @@ def run_predict(args: argparse.Namespace) -> int:
     elif args.format == "xlsx":
         xlsx_copy(f.book, args.out, args.force, "xlbridge predict", [
             (f"xlbridge predictions at {nx_area.label()} from {f.y_area.label()} on "
-             f"{f.x_area.label()}, model {f.result.spec.spec}", shown)])
+             f"{f.x_area.label()}, model {model_title(f.result)}", shown)])
     else:
         head = (f"xlbridge predict: {f.y_area.label()} on {f.x_area.label()}, model "
-                f"{f.result.spec.spec}, at {nx_area.label()} (level {f.result.level:g})\n\n")
+                f"{model_title(f.result)}, at {nx_area.label()} (level {f.result.level:g})\n\n")
         emit(head + render_table(table) + "\n", args.out, args.force, [f.book.path])
     return EXIT_OK
 
