@@ -124,9 +124,10 @@ def candidates_fit(y: Any, drivers: Any, options: Any = None, *,
                       o.level, o.vif_limit)
 
     def compute() -> CandidateTable:
+        alpha = float(f"{1 - o.level:.12g}")  # 0.05, not 1 - 0.95 in binary
         return run_engine(lambda: compare_candidates(
             inp.y, inp.x, names, forms=o.forms, methods=o.methods, max_drivers=o.max_drivers,
-            alpha=float(f"{1 - o.level:.12g}"), vif_limit=o.vif_limit, progress=progress), inp.header_rows)
+            alpha=alpha, vif_limit=o.vif_limit, progress=progress), inp.header_rows)
 
     return SCAN_CACHE.get_or_compute(key, compute), o
 
