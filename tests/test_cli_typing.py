@@ -106,4 +106,13 @@ def test_exit_codes_follow_error_classes_and_kinds():
     for exc in (BookError(words), RefError(words), OptionsError(words), UsageError(words)):
         assert exit_code(exc) == EXIT_USAGE
     assert exit_code(Failure(words)) == EXIT_FAIL
+    assert exit_code(FileNotFoundError(2, "No such file or directory", "/x")) == EXIT_USAGE
     assert exit_code(RuntimeError(words)) is None  # a fault of ours: "internal error"
+
+
+def test_an_unusable_output_folder_is_named(tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("not a folder")
+    code, _, err = run(["demo", "--out", blocker / "demo"], capsys)
+    assert code == 2 and "internal error" not in err
+    assert err.startswith("xlbridge: cannot use ") and str(blocker) in err

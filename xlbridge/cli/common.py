@@ -69,11 +69,13 @@ def exit_code(exc: BaseException) -> int | None:
 
     The command's own errors carry their code.  Otherwise: a model the engine cannot fit to
     these data (too few rows or distinct values, aliased terms, numbers out of scale) exits
-    1; an unusable option, reference, file or cell exits 2."""
+    1; an unusable option, reference, file, path or cell exits 2."""
     if isinstance(exc, CommandError):
         return exc.code
     if isinstance(exc, MemoryError):
         return EXIT_FAIL
+    if isinstance(exc, OSError) and exc.filename is not None:
+        return EXIT_USAGE  # a path typed at the command line that cannot be used
     from xlbridge.cells import CellError, CellErrorKind
     from xlbridge.engine import ModelError, ModelErrorKind
 
@@ -98,6 +100,9 @@ def message_of(exc: BaseException) -> str:
         text = exc.context + (own if own or cause is None else str(cause))
     elif isinstance(exc, MemoryError):
         text = "not enough memory; use fewer rows or a smaller model"
+    elif isinstance(exc, OSError) and exc.filename is not None:
+        text = (f"cannot use {exc.filename}: {exc.strerror or type(exc).__name__}; "
+                "give a path that exists and that you may write to")
     else:
         text = str(exc)
     return "xlbridge: " + " ".join(text.split())
