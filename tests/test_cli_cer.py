@@ -156,3 +156,14 @@ def test_bad_input_gives_a_message_naming_the_row_never_a_number(book, tmp_path,
     code, out, err = run(["fit", bad, "--y", "Data!B:B", "--x", "Data!A:A", "--model",
                           "power"], capsys)
     assert code == 2 and "method=mupe" in err
+
+
+def test_report_of_a_cer_puts_its_card_on_top(book, tmp_path, capsys):
+    out = tmp_path / "cer.html"
+    code, _, err = run(["report", book, "--y", "Data!D:D", "--x", "Data!A:A", "--model",
+                        "power", "--options", "method=zmpe", "--out", out], capsys)
+    assert code == 0, err
+    page = out.read_text(encoding="utf-8")
+    assert page.index("id='card'") < page.index("id='data'") < page.index("id='plots'")
+    api = xlbridge.fit(COST, WEIGHT, "power", method="zmpe", names=("weight",))
+    assert api.equation().replace("y = ", "cost = ") in page and page.count("data:image/png;base64,") == 2

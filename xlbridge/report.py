@@ -229,3 +229,76 @@ def write_report(path: str | Path, res: FitResult, **kwargs) -> Path:
     path = Path(path)
     path.write_text(build_report(res, **kwargs), encoding="utf-8")
     return path
+
+
+# --- cost-estimating relationships: the card on top, then the fit -------------------------
+
+CER_CSS = """
+section.card { border: 2px solid #1f4e79; border-radius: 6px; padding: .2rem 1rem 1rem;
+               background: #fbfcfe; }
+section.card td { text-align: left; white-space: normal; }
+section.card h2 { margin-top: .6rem; }
+ul.cautions li { color: #7a4a00; }
+"""
+
+
+def _rows_html(table: list[list]) -> str:
+    """A cells table (header row first) as HTML, its note rows as a list below it."""
+    from .cells.tables import split_notes
+
+    body, notes = split_notes(table)
+    out = _table([str(h) for h in body[0]], body[1:], text=(0,))
+    if notes:
+        out += "<ul class='small'>" + "".join(f"<li>{html.escape(n)}</li>"
+                                             for n in notes) + "</ul>"
+    return out
+
+
+def build_cer_report(res, facts, *, source: Source | None = None, title: str | None = None,
+                     options=None, candidates: list[list] | None = None,
+                     pngs: dict[str, bytes] | None = None) -> str:
+    """The report of a CER (``CerResult``) as one HTML string: its card (``CardFacts`` from
+    ``cells.cer.card_facts``) at the top, then the data, coefficients, statistics, figures,
+    the candidate comparison (a ``cells.cer.candidates_table``, when given), cautions and
+    versions."""
+    from . import cells, cerplots
+
+    src = source or Source()
+    opts = options or cells.Options()
+    title = title or f"CER report: {res.response} ({res.form} CER by {res.method})"
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+             f"<title>{html.escape(title)}</title><style>{CSS}{CER_CSS}</style></head><body>",
+             f"<h1>{html.escape(title)}</h1>",
+             "<section class='card' id='card'><h2>CER card</h2>",
+             _table(["item", "value"], [list(kv) for kv in facts.items], text=(0,)),
+             "<h3>Cautions</h3><ul class='cautions'>",
+             *[f"<li>{html.escape(c)}</li>" for c in facts.cautions], "</ul></section>"]
+
+    parts.append("<h2 id='data'>Data</h2>")
+    rows = [["file", src.file or "(given directly)"], ["y", src.y_ref or res.response],
+            ["x", src.x_ref or ", ".join(res.drivers)],
+            ["options", src.options or "(defaults)"]]
+    parts.append(_table(["item", "value"], rows, text=(0, 1)))
+
+    parts.append("<h2 id='coefficients'>Coefficients</h2>")
+    parts.append(_rows_html(cells.coef_table(res, opts.replace(header=True))))
+    parts.append("<h2 id='statistics'>Statistics</h2>")
+    parts.append(_rows_html(cells.stats_table(res, opts.replace(header=True))))
+
+    parts.append("<h2 id='plots'>Plots</h2><div class='grid'>")
+    pngs = dict(pngs or cerplots.cer_pngs(res))
+    for kind in cerplots.KINDS:
+        parts.append(_figure(pngs[kind], cerplots.CAPTIONS[kind]))
+    parts.append("</div>")
+
+    if candidates is not None:
+        parts.append("<h2 id='candidates'>Candidate CERs</h2>")
+        parts.append(_rows_html(candidates))
+
+    parts.append("<h2 id='cautions'>Cautions</h2><ul>")
+    parts += [f"<li>{html.escape(c)}</li>" for i, c in enumerate(CAUTIONS) if i != 1]
+    parts.append("</ul>")
+    parts.append("<h2 id='versions'>Versions</h2>")
+    parts.append(_table(["component", "version"], _versions(), text=(0, 1)))
+    parts.append("</body></html>")
+    return "\n".join(parts)

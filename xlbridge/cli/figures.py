@@ -10,6 +10,7 @@ from .common import (
     EXIT_OK,
     Fitted,
     UsageError,
+    add_base_year_options,
     add_data_options,
     as_failure,
     choice,
@@ -71,6 +72,7 @@ def run_plot(args: argparse.Namespace) -> int:
 
 def configure_report(p: argparse.ArgumentParser) -> None:
     add_data_options(p)
+    add_base_year_options(p)
     p.add_argument("--out", type=Path, required=True, metavar="FILE.html",
                    help="the report to write")
     p.add_argument("--max-degree", type=int, default=5, metavar="N",
@@ -83,10 +85,20 @@ def run_report(args: argparse.Namespace) -> int:
 
     if args.out.suffix.lower() not in (".html", ".htm"):
         raise UsageError(f"--out {args.out.name}: the report is an .html file")
+    from xlbridge.engine import CerResult
+
     f = fit_from_args(args)
-    scan = _scan(f, args.max_degree) if f.result.spec.k == 1 else None
     src = Source(file=f.book.path.name, y_ref=f.y_area.label(), x_ref=f.x_area.label(),
                  options=f.inp.options.to_text())
+    if isinstance(f.result, CerResult):  # a CER: its card on top (report.build_cer_report)
+        from xlbridge.cells.cer import card_facts
+        from xlbridge.report import build_cer_report
+
+        facts = card_facts(f.result, f.inp.key(), f.inp.options, f.inp.drops)
+        text = build_cer_report(f.result, facts, source=src, options=f.inp.options)
+        emit(text, args.out, args.force, [f.book.path])
+        return EXIT_OK
+    scan = _scan(f, args.max_degree) if f.result.spec.k == 1 else None
     emit(build_report(f.result, scan=scan, source=src), args.out, args.force, [f.book.path])
     return EXIT_OK
 
