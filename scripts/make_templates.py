@@ -135,7 +135,156 @@ def margin_surface() -> Scenario:
     )
 
 
-SCENARIOS = (equipment_cost, margin_surface)
+@dataclass
+class CerScenario:
+    """A cost-estimating-relationship workbook: costs of several years brought to one base
+    year, a power CER and its candidates, its card, percentiles, and a learning curve."""
+
+    file: str
+    title: str
+    seed: int
+    rows: list[list]  # item, weight_t, length_m, year, cost_k
+    index: list[list[float]]  # year, index
+    base_year: int
+    lots: list[list[float]]  # first unit, last unit, lot labour hours
+    inputs: list[list[float]]  # weights of new estimates
+    how_to: list[str] = field(default_factory=list)
+
+
+def steel_cer() -> CerScenario:
+    """Estimating: fabricated steel assemblies (invented): cost (k$, in the prices of the
+    year built) against weight, with a price index to bring them to one year; labour hours of
+    lots of a repeated truss for a learning curve."""
+    seed = 20261203
+    rng = np.random.default_rng(seed)
+    years = list(range(2018, 2026))
+    index = dict(zip(years, _round(100 * np.cumprod([1.0] + list(1 + rng.uniform(
+        0.01, 0.05, len(years) - 1))), 1)))
+    n = 24
+    weight = np.sort(rng.uniform(2, 60, n))
+    length = 4 + 0.9 * weight + rng.normal(0, 4, n)
+    year = rng.integers(2018, 2026, n)
+    cost_base = 9.5 * weight**0.82 * np.exp(rng.normal(0, 0.09, n))
+    cost = cost_base * np.array([index[int(y)] for y in year]) / index[2025]
+    rows = [[f"S-{101 + i}", w, ln, int(y), c] for i, (w, ln, y, c) in
+            enumerate(zip(_round(weight, 1), _round(np.abs(length), 1), year,
+                          _round(cost, 1)))]
+    b = np.log2(0.88)
+    lots = []
+    for first, last in ((1, 4), (5, 12), (13, 24), (25, 40), (41, 64)):
+        hours = sum(120 * i**b for i in range(first, last + 1)) * (1 + rng.normal(0, 0.02))
+        lots.append([first, last, float(round(hours, 1))])
+    return CerScenario(
+        file="steel_cer.xlsx",
+        title="Cost of fabricated steel assemblies against weight (a power CER)",
+        seed=seed, rows=rows, index=[[y, v] for y, v in index.items()], base_year=2025,
+        lots=lots, inputs=[[5.0], [20.0], [45.0], [80.0]],
+        how_to=[
+            "Data: one row per assembly built; weight in tonnes, length in m, the year it was "
+            "built and its cost in k$ of that year. Column F (XB_BASEYEAR) brings every cost "
+            "to 2025 prices with the price index on the Index sheet; the CER is fitted to it.",
+            "Model!B4 holds the form (power, factor or exponential), Model!B5 the method and "
+            "base year, e.g. method=mupe; base_year=2025 (method=log, zmpe or ols also work).",
+            "XB_CERCARD documents the CER on one screen for review; XB_CANDIDATES compares "
+            "forms, methods and drivers ranked by unit-space SPE/CV; XB_PLEVELS gives "
+            "percentiles of new estimates for a risk analysis.",
+            "Lots sheet: labour hours of lots of a repeated truss; XB_LEARNING fits a unit "
+            "learning curve from the lots (slope, first-unit hours) and costs the next lot.",
+        ],
+    )
+
+
+def build_cer(sc: CerScenario):
+    """The workbook of a CER scenario (an openpyxl Workbook)."""
+    from openpyxl import Workbook
+    from openpyxl.styles import Font
+    from openpyxl.worksheet.formula import ArrayFormula
+
+    from xlbridge import worksheet as ws
+
+    wb = Workbook()
+    wb.properties.creator = "xlbridge scripts/make_templates.py"
+    wb.properties.created = FIXED_TIME
+    wb.properties.modified = FIXED_TIME
+    data = wb.active
+    data.title = "Data"
+    columns = ["item", "weight_t", "length_m", "year", "cost_k"]
+    data.append(columns)
+    for r in sc.rows:
+        data.append(r)
+    last = len(sc.rows) + 1
+    index = wb.create_sheet("Index")
+    index.append(["year", "index"])
+    for r in sc.index:
+        index.append(r)
+    index_ref = f"Index!$A$1:$B${len(sc.index) + 1}"
+    by_opts = f"base_year={sc.base_year}"
+    cost_v = [["cost_k"]] + [[r[4]] for r in sc.rows]
+    year_v = [["year"]] + [[r[3]] for r in sc.rows]
+    index_v = [["year", "index"]] + sc.index
+    y_vals = ws.XB_BASEYEAR(cost_v, year_v, index_v, by_opts)
+    data["F1"] = ArrayFormula(f"F1:F{last}", f"=XB_BASEYEAR(Data!$E$1:$E${last},"
+                                             f"Data!$D$1:$D${last},{index_ref},\"{by_opts}\")")
+    for c in data[1]:
+        c.font = Font(bold=True)
+    y_ref, x_ref, d_ref = (f"Data!$F$1:$F${last}", f"Data!$B$1:$B${last}",
+                           f"Data!$B$1:$C${last}")
+    x_vals = [["weight_t"]] + [[r[1]] for r in sc.rows]
+    d_vals = [["weight_t", "length_m"]] + [[r[1], r[2]] for r in sc.rows]
+
+    model = wb.create_sheet("Model")
+    model["A1"] = sc.title
+    model["A1"].font = Font(bold=True, size=13)
+    model["A2"] = ("Invented demonstration data. Every table below is a worksheet function of "
+                   "xlbridge; refresh headlessly with: xlbridge recalc BOOK --out COPY")
+    form, opts = "power", f"method=mupe; {by_opts}"
+    cand = "forms=power,linear,exponential; methods=log,mupe,zmpe; max_drivers=2"
+    for r, (k, v, note) in enumerate((
+            ("model", form, "power, factor or exponential"),
+            ("options", opts, "method=log|mupe|zmpe|ols; base_year=YYYY; levels=10,50,90"),
+            ("candidates", cand, "forms, methods and drivers per model to compare")), 4):
+        model.cell(row=r, column=1, value=k).font = Font(bold=True)
+        model.cell(row=r, column=2, value=v)
+        model.cell(row=r, column=3, value=note)
+    args = f"{y_ref},{x_ref},$B$4,$B$5"
+    row = 8
+    for caption, formula, value in (
+            ("CER card", f"XB_CERCARD({args})", ws.XB_CERCARD(y_vals, x_vals, form, opts)),
+            ("Coefficients (a first, then the exponent)", f"XB_COEFS({args})",
+             ws.XB_COEFS(y_vals, x_vals, form, opts)),
+            ("Fit statistics", f"XB_STATS({args})", ws.XB_STATS(y_vals, x_vals, form, opts)),
+            ("Equation (raw units, full precision)", f"XB_EQUATION({args})",
+             ws.XB_EQUATION(y_vals, x_vals, form, opts)),
+            ("Candidate CERs, ranked", f"XB_CANDIDATES({y_ref},{d_ref},$B$6)",
+             ws.XB_CANDIDATES(y_vals, d_vals, cand))):
+        row = put_block(model, row, caption, formula, value)
+    model.cell(row=row, column=1, value="Weights to estimate (t)").font = Font(bold=True)
+    in_vals = [["weight_t"]] + sc.inputs
+    for i, (v,) in enumerate(in_vals):
+        model.cell(row=row + 1 + i, column=1, value=v)
+    in_ref = f"$A${row + 1}:$A${row + len(in_vals)}"
+    put_block(model, row, "Percentiles of a new estimate (for a risk analysis)",
+              f"XB_PLEVELS({y_ref},{x_ref},$B$4,{in_ref},$B$5)",
+              ws.XB_PLEVELS(y_vals, x_vals, form, in_vals, opts), col=3)
+    model.column_dimensions["A"].width = 34
+
+    lots = wb.create_sheet("Lots")
+    lots.append(["first_unit", "last_unit", "labour_hours", None, "from_unit", "to_unit"])
+    for i, r in enumerate(sc.lots):
+        lots.append(r + ([None, 65, 80] if i == 0 else []))
+    n_lots = len(sc.lots) + 1
+    put_block(lots, 1, "Learning curve (unit theory) from the lots; cost of units 65-80",
+              f"XB_LEARNING(Lots!$A$1:$B${n_lots},Lots!$C$1:$C${n_lots},Lots!$E$2:$F$2)",
+              ws.XB_LEARNING([["first_unit", "last_unit"]] + [r[:2] for r in sc.lots],
+                             [["labour_hours"]] + [[r[2]] for r in sc.lots], [[65, 80]]),
+              col=8)
+
+    conf = wb.create_sheet("xlwings.conf")
+    conf["A1"], conf["B1"] = "UDF Modules", "xlbridge.worksheet"
+    notes_sheet(wb, sc.title, sc.seed, sc.how_to)
+    return wb
+
+
 
 
 def _col(i: int) -> str:
@@ -147,6 +296,50 @@ def _col(i: int) -> str:
 def _shape(formula_value) -> tuple[int, int]:
     rows = len(formula_value)
     return rows, max(len(r) for r in formula_value)
+
+
+def notes_sheet(wb, title: str, seed: int, how_to: list[str]) -> None:
+    """The Notes sheet: what the data are, how to use the workbook, the cautions."""
+    from openpyxl.styles import Font
+
+    notes = wb.create_sheet("Notes")
+    lines = [title, "",
+             f"Invented data, generated by scripts/make_templates.py with seed {seed}.", "",
+             "How to use"] + [f"- {t}" for t in how_to] + [
+             "", "Desktop (Windows and the desktop spreadsheet program): pip install "
+             "\"xlbridge[desktop]\", xlwings addin install, then Import Functions on the "
+             "xlwings tab (the xlwings.conf sheet already names xlbridge.worksheet), and save "
+             "as a macro-enabled workbook.",
+             "Anywhere (no spreadsheet program): xlbridge recalc THIS.xlsx --out COPY.xlsx "
+             "fills every table; xlbridge pin / verify check them on CI.",
+             "The tables are array formulas over their exact size; if a change makes a table "
+             "larger (a higher degree), re-enter it over a larger range, or type the formula "
+             "in the top-left cell only and let it spill.",
+             "", "Cautions"] + [f"- {c}" for c in CAUTIONS]
+    for i, text in enumerate(lines, 1):
+        notes.cell(row=i, column=1, value=text)
+    notes["A1"].font = Font(bold=True, size=13)
+    notes.column_dimensions["A"].width = 120
+
+
+def put_block(sheet, row: int, caption: str, formula: str, value, col: int = 1,
+              note: str = "") -> int:
+    """Write a caption at ``row`` and an array formula over exactly the result's shape
+    below it; returns the next free row (one blank row after the block)."""
+    from openpyxl.styles import Font
+    from openpyxl.worksheet.formula import ArrayFormula
+
+    sheet.cell(row=row, column=col, value=caption).font = Font(bold=True)
+    if note:
+        sheet.cell(row=row, column=col + 1, value=note)
+    top = row + 1
+    h, w = _shape(value)
+    ref = f"{_col(col)}{top}:{_col(col + w - 1)}{top + h - 1}"
+    if h == 1 and w == 1:
+        sheet.cell(row=top, column=col, value=f"={formula}")
+    else:
+        sheet.cell(row=top, column=col).value = ArrayFormula(ref, f"={formula}")
+    return top + h + 1
 
 
 def build(sc: Scenario):
@@ -201,19 +394,7 @@ def build(sc: Scenario):
     k = len(sc.x_cols)
 
     def put(caption: str, formula: str, value, col: int = 1, note: str = "") -> int:
-        """Write a caption and an array formula over exactly the result's shape."""
-        nonlocal row
-        model.cell(row=row, column=col, value=caption).font = Font(bold=True)
-        if note:
-            model.cell(row=row, column=col + 1, value=note)
-        top = row + 1
-        h, w = _shape(value)
-        ref = f"{_col(col)}{top}:{_col(col + w - 1)}{top + h - 1}"
-        if h == 1 and w == 1:
-            model.cell(row=top, column=col, value=f"={formula}")
-        else:
-            model.cell(row=top, column=col).value = ArrayFormula(ref, f"={formula}")
-        return top + h + 1
+        return put_block(model, row, caption, formula, value, col, note)
 
     m = sc.model
     opts = sc.options or None
@@ -264,32 +445,18 @@ def build(sc: Scenario):
     conf = wb.create_sheet("xlwings.conf")
     conf["A1"], conf["B1"] = "UDF Modules", "xlbridge.worksheet"
 
-    notes = wb.create_sheet("Notes")
-    lines = [sc.title, "",
-             f"Invented data, generated by scripts/make_templates.py with seed {sc.seed}.", "",
-             "How to use"] + [f"- {t}" for t in sc.how_to] + [
-             "", "Desktop (Windows and the desktop spreadsheet program): pip install "
-             "\"xlbridge[desktop]\", xlwings addin install, then Import Functions on the "
-             "xlwings tab (the xlwings.conf sheet already names xlbridge.worksheet), and save "
-             "as a macro-enabled workbook.",
-             "Anywhere (no spreadsheet program): xlbridge recalc THIS.xlsx --out COPY.xlsx "
-             "fills every table; xlbridge pin / verify check them on CI.",
-             "The tables are array formulas over their exact size; if a change makes a table "
-             "larger (a higher degree), re-enter it over a larger range, or type the formula "
-             "in the top-left cell only and let it spill.",
-             "", "Cautions"] + [f"- {c}" for c in CAUTIONS]
-    for i, text in enumerate(lines, 1):
-        notes.cell(row=i, column=1, value=text)
-    notes["A1"].font = Font(bold=True, size=13)
-    notes.column_dimensions["A"].width = 120
+    notes_sheet(wb, sc.title, sc.seed, sc.how_to)
     return wb
+
+
+SCENARIOS = ((equipment_cost, build), (margin_surface, build), (steel_cer, build_cer))
 
 
 def write_all(dirs=OUT_DIRS) -> list[Path]:
     out = []
-    for make in SCENARIOS:
+    for make, builder in SCENARIOS:
         sc = make()
-        wb = build(sc)
+        wb = builder(sc)
         for d in dirs:
             d.mkdir(parents=True, exist_ok=True)
             path = d / sc.file

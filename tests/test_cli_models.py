@@ -122,7 +122,9 @@ def test_demo_writes_every_file(tmp_path, capsys):
     code, text, err = run(["demo", "--out", out], capsys)
     assert code == 0, err
     assert "0 errors" in text and "errors" in text
-    for stem in ("equipment_cost", "margin_surface"):
+    assert text.count(", 0 errors") == 3  # every template, the CER workbook included
+    assert "power CER by mupe" in text and "(costs in 2025 prices)" in text
+    for stem in ("equipment_cost", "margin_surface", "steel_cer"):
         for suffix in (".xlsx", "-calculated.xlsx", "-report.html"):
             assert (out / f"{stem}{suffix}").stat().st_size > 0
     pngs = list((out / "figures").glob("*.png"))

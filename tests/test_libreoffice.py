@@ -63,6 +63,8 @@ XB_CALL = re.compile(r"\bXB_[A-Z]+\s*\(", re.IGNORECASE)
 FIT_ARGS = {
     "equipment_cost.xlsx": ["--y", "Data!C1:C49", "--x", "Data!B1:B49", "--model", "2"],
     "margin_surface.xlsx": ["--y", "Data!D1:D61", "--x", "Data!B1:C61", "--model", "surface"],
+    "steel_cer.xlsx": ["--y", "Data!E1:E25", "--x", "Data!B1:B25", "--model", "power",
+                       "--options", "method=mupe"],
 }
 
 Cell = tuple[str, int, int]  # sheet, row, column (1-based)
@@ -137,10 +139,13 @@ def printed_half_unit(text: str) -> float:
 
     Its CSV export writes full precision (15 significant digits) but at most 20 decimals in
     fixed notation, so a p-value of 3.770884374358058e-10 comes out as 0.00000000037708843744:
-    11 significant digits. Only a number cut at that limit is compared to the digits printed;
-    any other must match to 12 significant digits."""
+    11 significant digits, and 5.55783103611653e-13 as 0.0000000000005557831 (the cut digit
+    a 0, dropped). Only a number that may have been cut at that limit (at least 12 leading
+    zeros after the point, so fewer than 9 of its digits fit) is compared to the digits
+    printed; any other must match to 12 significant digits."""
     decimals = text.split(".", 1)[1] if "." in text and "e" not in text.lower() else ""
-    return 0.5 * 10.0 ** -FIXED_DECIMALS if len(decimals) == FIXED_DECIMALS else 0.0
+    cut = len(decimals) == FIXED_DECIMALS or decimals.startswith("0" * 12)
+    return 0.5 * 10.0 ** -FIXED_DECIMALS if cut else 0.0
 
 
 def same_display(text: str, value: Any) -> bool:

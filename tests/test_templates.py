@@ -33,19 +33,24 @@ def test_shipped_templates_match_the_script(tmp_path):
             assert mt.cells_of(shipped) == mt.cells_of(f), f"{shipped} differs from the script"
 
 
-@pytest.mark.parametrize("name", ["equipment_cost.xlsx", "margin_surface.xlsx"])
+SHEETS = {"equipment_cost.xlsx": {"Data", "Model", "Diagnostics", "xlwings.conf", "Notes"},
+          "margin_surface.xlsx": {"Data", "Model", "Diagnostics", "xlwings.conf", "Notes"},
+          "steel_cer.xlsx": {"Data", "Index", "Model", "Lots", "xlwings.conf", "Notes"}}
+
+
+@pytest.mark.parametrize("name", sorted(SHEETS))
 def test_template_has_the_expected_sheets(name):
     from openpyxl import load_workbook
 
     wb = load_workbook(REPO / "workbook_templates" / name)
-    assert {"Data", "Model", "Diagnostics", "xlwings.conf", "Notes"} <= set(wb.sheetnames)
+    assert SHEETS[name] <= set(wb.sheetnames)
     conf = wb["xlwings.conf"]
     assert (conf["A1"].value, conf["B1"].value) == ("UDF Modules", "xlbridge.worksheet")
     notes = " ".join(str(c.value) for c in wb["Notes"]["A"] if c.value)
     assert "Invented data" in notes and "licensed professional" in notes
 
 
-@pytest.mark.parametrize("name", ["equipment_cost.xlsx", "margin_surface.xlsx"])
+@pytest.mark.parametrize("name", sorted(SHEETS))
 def test_recalc_fills_every_model_cell_without_error(name, tmp_path, capsys):
     """Headless recalc of each template: every XB_ cell evaluated, no message cells; the
     copy read back with python-calamine (an independent reader)."""
@@ -64,3 +69,6 @@ def test_recalc_fills_every_model_cell_without_error(name, tmp_path, capsys):
     assert not any(isinstance(v, str) and v.startswith("xlbridge:") for v in values)
     assert any(v == "recommended" for v in values) or name != "equipment_cost.xlsx"
     assert any(v == "maximum" for v in values) or name != "margin_surface.xlsx"
+    # the CER workbook: its card, a best candidate and the learning curve's slope
+    if name == "steel_cer.xlsx":
+        assert {"CER card", "best", "slope_percent", "cost_k_2025"} <= set(values)

@@ -14,7 +14,7 @@ from pathlib import Path
 
 from .book.safety import BookError
 
-TEMPLATES = ("equipment_cost.xlsx", "margin_surface.xlsx")
+TEMPLATES = ("equipment_cost.xlsx", "margin_surface.xlsx", "steel_cer.xlsx")
 MARKER = ".xlbridge-demo"
 
 
@@ -44,11 +44,46 @@ def _prepare(out: Path, force: bool) -> None:
     (out / MARKER).write_text("written by xlbridge demo; its files may be replaced\n")
 
 
+def _cer_outputs(out: Path, name: str, captured: dict, evaluation, calculated: Path
+                 ) -> list[str]:
+    """The figures and the report (its card on top) of a CER workbook; summary lines."""
+    from .cells.cer import candidates_cells, card_facts, card_input
+    from .cerplots import cer_pngs
+    from .report import Source, build_cer_report
+
+    stem = name.removesuffix(".xlsx")
+    res, inp = card_input(*captured["XB_COEFS"])
+    facts = card_facts(res, inp.key(), inp.options, inp.drops)
+    pngs = cer_pngs(res)
+    (out / "figures").mkdir(exist_ok=True)
+    for kind, data in pngs.items():
+        (out / "figures" / f"{stem}-{kind}.png").write_bytes(data)
+    candidates = (candidates_cells(*captured["XB_CANDIDATES"])
+                  if "XB_CANDIDATES" in captured else None)
+    report = out / f"{stem}-report.html"
+    report.write_text(build_cer_report(
+        res, facts, options=inp.options, candidates=candidates, pngs=pngs,
+        source=Source(file=name, y_ref=f"{res.response} (sheet Data)",
+                      x_ref=", ".join(res.drivers) + " (sheet Data)",
+                      options=inp.options.to_text())), encoding="utf-8")
+    failed = evaluation.failed
+    u = res.unit
+    lines = [f"{name}: {len(evaluation.cells)} model tables evaluated, {len(failed)} errors"]
+    lines += [f"  {x.label} {x.function}: {x.message}" for x in failed]
+    lines += [f"  {res.form} CER by {res.method} on {u.n} rows ({res.n_dropped} dropped): "
+              f"SPE {u.spe:.4g}, CV {u.cv:.4g}, R2 in units {u.r2_unit:.4f}",
+              f"  {dict(facts.items)['equation']}",
+              f"  files: {name}, {calculated.name}, {report.name}, {len(pngs)} figures in "
+              "figures/", ""]
+    return lines
+
+
 def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     """Run the demo into folder ``out``; returns the summary text."""
     from . import cells, worksheet
     from .book.reader import open_book
     from .cells import models as model_cells
+    from .engine import CerResult
     from .plots import write_figures
     from .report import Source, write_report
     from .runner.recalc import evaluate_book
@@ -66,11 +101,15 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
             shutil.copyfile(src, template)
         book = open_book(template)
         captured: dict = {}
-        functions = _capturing(worksheet.FUNCTIONS, ("XB_COEFS", "XB_DEGREESCAN"), captured)
+        functions = _capturing(worksheet.FUNCTIONS, ("XB_COEFS", "XB_DEGREESCAN",
+                                                     "XB_CANDIDATES"), captured)
         evaluation = evaluate_book(book, functions=functions)
         calculated = out / f"{stem}-calculated.xlsx"
         write_copy(evaluation, calculated, values=True, force=True)
         res, _ = cells.fit_cells(*captured["XB_COEFS"])
+        if isinstance(res, CerResult):
+            lines += _cer_outputs(out, name, captured, evaluation, calculated)
+            continue
         scan = None
         if "XB_DEGREESCAN" in captured:
             scan, _ = model_cells.scan_cells(*captured["XB_DEGREESCAN"])

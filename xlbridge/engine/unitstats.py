@@ -24,6 +24,12 @@ from dataclasses import dataclass
 import numpy as np
 
 
+def _sum(a) -> float:
+    """Exact sum (math.fsum) of finite terms; inf or nan, never an exception, otherwise."""
+    a = np.asarray(a, dtype=float)
+    return math.fsum(a) if np.all(np.isfinite(a)) else float(np.sum(a))
+
+
 def _plain(v: float) -> float | None:
     v = float(v)
     return v if math.isfinite(v) else None
@@ -65,18 +71,18 @@ def unit_stats(y, fitted, n_params: int, multiplicative: bool = False) -> UnitSt
     f = np.asarray(fitted, dtype=float).ravel()
     n = len(y)
     df = n - int(n_params)
-    e = y - f
-    sse = math.fsum(e * e)
-    see = math.sqrt(sse / df) if df > 0 else math.nan
-    ybar = math.fsum(y) / n if n else math.nan
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(all="ignore"):  # extreme data give inf/nan statistics, not errors
+        e = y - f
+        sse = _sum(e * e)
+        see = math.sqrt(sse / df) if df > 0 else math.nan
+        ybar = _sum(y) / n if n else math.nan
         cv = see / ybar if ybar != 0 else math.nan
-        sst = math.fsum((y - ybar) ** 2)
+        sst = _sum((y - ybar) ** 2)
         r2 = 1.0 - sse / sst if sst > 0 else math.nan
-        bias = 100.0 * math.fsum((f - y) / y) / n if n and np.all(y != 0) else math.nan
+        bias = 100.0 * _sum((f - y) / y) / n if n and np.all(y != 0) else math.nan
         spe = math.nan
         if multiplicative and df > 0 and np.all(f != 0):
-            spe = math.sqrt(math.fsum((e / f) ** 2) / df)
+            spe = math.sqrt(_sum((e / f) ** 2) / df)
     return UnitStats(n, int(n_params), see, cv, r2, bias, spe, bool(multiplicative))
 
 
