@@ -8,7 +8,7 @@ import re
 from pathlib import Path
 from typing import Any
 
-from xlbridge.book.safety import BookError
+from xlbridge.book.safety import BookError, reader_guard
 from xlbridge.book.workbook import Book, SheetData
 
 __all__ = ["CsvBook"]
@@ -52,14 +52,16 @@ class CsvBook(Book):
             dialect: Any = csv.Sniffer().sniff(sample, delimiters=",;\t")
         except csv.Error:
             dialect = csv.excel
-        grid = [[_csv_value(v) for v in row] for row in csv.reader(io.StringIO(text), dialect)]
+        with reader_guard(path.name):
+            grid = [[_csv_value(v) for v in row]
+                    for row in csv.reader(io.StringIO(text), dialect)]
         while grid and all(v is None for v in grid[-1]):
             grid.pop()
         sheet = path.stem
         super().__init__(path, "csv", [sheet])
         self._grid = grid
 
-    def load_sheet(self, name: str) -> SheetData:
+    def load_sheet(self, name: str, last_col: int | None = None) -> SheetData:
         return SheetData(name, self._grid, converted=True)
 
 

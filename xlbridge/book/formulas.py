@@ -16,8 +16,9 @@ from dataclasses import dataclass
 from typing import Any
 
 from xlbridge.book.reader import Book
-from xlbridge.book.refs import Area, RefError, parse_ref
-from xlbridge.book.safety import BookError, safe_openpyxl
+from xlbridge.book.refs import MAX_COL, MAX_ROW, Area, RefError, parse_ref, quote_sheet
+from xlbridge.book.safety import MAX_BLOCK_CELLS, BookError, reader_guard, safe_openpyxl
+from xlbridge.book.values import MAX_NAME_CHARS
 
 __all__ = ["FormulaCell", "FormulaIndex", "formula_index"]
 
@@ -113,18 +114,39 @@ def _scan_formulas(data: bytes, sheet: str) -> dict[tuple[int, int], FormulaCell
     return out
 
 
-def _scan_book(book: Book, index: FormulaIndex) -> list[str]:
-    """Fill ``index`` from the sheets' XML; returns the sheets left for openpyxl."""
+def _formula_boxes(book: Book) -> dict[str, tuple[int, int, int, int]]:
+    """The block holding formulas of each sheet that has any (from the book's one scan of
+    each sheet); refuses a block larger than MAX_BLOCK_CELLS."""
+    boxes = {}
+    for name in book.sheet_names:
+        box = book.formula_box(name)
+        if box is None:
+            continue
+        r1, c1, r2, c2 = box
+        if (r2 - r1 + 1) * (c2 - c1 + 1) > MAX_BLOCK_CELLS:
+            block = Area(name, r1, c1, r2, c2)
+            raise BookError(
+                f"{book.path.name}: the formulas of {quote_sheet(name[:MAX_NAME_CHARS])} "
+                f"spread over {block.cells_text()} ({block.n_rows * block.n_cols:,} cells; "
+                f"the limit is {MAX_BLOCK_CELLS:,}); delete the formulas far from the "
+                "others and try again"
+            )
+        boxes[name] = box
+    return boxes
+
+
+def _scan_book(book: Book, index: FormulaIndex,
+               boxes: dict[str, tuple[int, int, int, int]]) -> list[str]:
+    """Fill ``index`` from the XML of the sheets that hold formulas (the book's scan tells
+    which); returns the sheets left for openpyxl."""
     rest = []
-    with zipfile.ZipFile(book.path) as zf:
-        for name in book.sheet_names:
+    with reader_guard(book.path.name), zipfile.ZipFile(book.path) as zf:
+        for name in boxes:
             part = book.sheet_part(name)
             if part is None:
                 rest.append(name)
                 continue
             data = zf.read(part)
-            if b"<f" not in data and b"<sheetData" in data:
-                continue  # no formula at all
             try:
                 index[name].update(_scan_formulas(data, name))
             except _NeedsOpenpyxl:
@@ -132,17 +154,23 @@ def _scan_book(book: Book, index: FormulaIndex) -> list[str]:
     return rest
 
 
-def _stored_cells(ws: Any) -> Iterable[Any]:
+def _stored_cells(ws: Any, box: tuple[int, int, int, int]) -> Iterable[Any]:
     """The cells a worksheet holds. A workbook open for a copy keeps them in a dict that
     openpyxl offers no public view of; iter_rows() would create an empty cell for every
     position of the used range (millions for a sheet with one far-away cell). Read-only
-    worksheets have no such dict and stream their rows."""
+    worksheets have no such dict and stream their rows, filling every gap with empty cells,
+    so only the block ``box`` that holds the formulas is read."""
     cells = getattr(ws, "_cells", None)
-    return cells.values() if cells is not None else (c for row in ws.iter_rows() for c in row)
+    if cells is not None:
+        return cells.values()
+    r1, c1, r2, c2 = box
+    return (c for row in ws.iter_rows(min_row=r1, min_col=c1, max_row=r2, max_col=c2)
+            for c in row)
 
 
-def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str) -> None:
-    for cell in _stored_cells(ws):
+def _index_sheet(dest: dict[tuple[int, int], FormulaCell], ws: Any, name: str,
+                 box: tuple[int, int, int, int] = (1, 1, MAX_ROW, MAX_COL)) -> None:
+    for cell in _stored_cells(ws, box):
         f = _cell_formula(cell, name)
         if f is not None:
             dest[(f.row, f.col)] = f
@@ -154,22 +182,22 @@ def formula_index(book: Book, workbook: Any = None) -> FormulaIndex:
     if book.kind == "csv":
         return index
     if workbook is None:
-        wanted = _scan_book(book, index)
+        boxes = _formula_boxes(book)
+        wanted = _scan_book(book, index, boxes)
         if not wanted:
             return index
         openpyxl = safe_openpyxl()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            try:
+            with reader_guard(book.path.name):
                 wb = openpyxl.load_workbook(book.path, read_only=True, data_only=False,
                                             keep_links=False)
-            except Exception as exc:
-                raise BookError(f"{book.path.name}: formulas cannot be read: {exc}") from None
             try:
                 for name in wanted:
                     if name not in wb.sheetnames:
                         continue
-                    _index_sheet(index[name], wb[name], name)
+                    with reader_guard(book.path.name, name):
+                        _index_sheet(index[name], wb[name], name, boxes[name])
             finally:
                 wb.close()
         return index

@@ -16,11 +16,12 @@ import stat
 import time
 import zipfile
 import zlib
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from pathlib import Path
 from typing import Any
 
 __all__ = [
+    "MAX_BLOCK_CELLS",
     "MAX_ENTRIES",
     "MAX_ENTRY_RATIO",
     "MAX_UNZIPPED_BYTES",
@@ -31,6 +32,7 @@ __all__ = [
     "check_output",
     "formula_safe_text",
     "publish",
+    "reader_guard",
     "remove_stale_temps",
     "safe_openpyxl",
     "write_atomically",
@@ -48,10 +50,40 @@ _RATIO_MIN_BYTES = 50 * 1024**2
 _PROLOG_LIMIT = 64 * 1024
 
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
+#: The largest block of cells read from one sheet, counted from A1 to the farthest cell the
+#: block must hold (rows x columns). The value reader holds the whole block in memory, about
+#: 60 bytes a cell with the Python lists (20 million cells: about 1.2 GB).
+MAX_BLOCK_CELLS = 20_000_000
 
 
 class BookError(Exception):
     """Bad input or output file or reference: exit code 2; message says what to fix."""
+
+
+@contextlib.contextmanager
+def reader_guard(book: str, sheet: str | None = None) -> Iterator[None]:
+    """Turn any failure inside a reader library (python-calamine, openpyxl, zipfile, the XML
+    parsers) into a BookError naming the file and sheet: the one place this is done.
+
+    Native panics of calamine arrive as pyo3's PanicException, which derives from
+    BaseException, so everything but interrupts and exits is caught.
+    """
+    try:
+        yield
+    except BookError:
+        raise
+    except (KeyboardInterrupt, SystemExit, GeneratorExit):
+        raise
+    except BaseException as exc:  # noqa: BLE001 - a message, never a traceback
+        where = book + (f", sheet {sheet[:100]!r}," if sheet else "")
+        if isinstance(exc, MemoryError):
+            raise BookError(f"{where} is too large to read in the memory of this computer; "
+                            "split the data over smaller sheets or files") from None
+        detail = " ".join(str(exc).split())[:200] or type(exc).__name__
+        raise BookError(
+            f"{where} cannot be read ({detail}); open the file in a spreadsheet program, "
+            "save it again as .xlsx and try again"
+        ) from None
 
 
 def _size_text(n: int) -> str:

@@ -6,10 +6,12 @@ The one home of these rules; the readers, the formula parser and the cell layer 
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
 import re
 from collections.abc import Sequence
 
-__all__ = ["EPOCH", "ERROR_CODES", "ERROR_TEXTS", "MESSAGE_PREFIX", "is_error_code",
+__all__ = ["EPOCH", "ERROR_CODES", "ERROR_TEXTS", "MAX_NAME_CHARS", "MESSAGE_PREFIX",
+           "bounded_name", "is_error_code",
            "is_error_text", "is_message_cell", "serial_of", "date_of"]
 
 #: Error values a spreadsheet program shows in a cell (the classic seven, the dynamic-array
@@ -26,6 +28,23 @@ _ERROR_LIKE = re.compile(r"#[A-Z][A-Z0-9_/]*[!?]")
 #: newer ones such as ``#SPILL!``): a whole number, the error's automation code. Codes are
 #: 0x800A0000 + 2000..2099 as a signed 32-bit number, e.g. ``#N/A`` = -2146826246.
 ERROR_CODES = range(-2146828288 + 2000, -2146828288 + 2100)
+
+#: The longest name or label (a header text that names a column, a group key, a sheet, table
+#: or defined name) carried into equations, tables, reports and messages; the longest name a
+#: spreadsheet program allows for a defined name.
+MAX_NAME_CHARS = 255
+
+
+def bounded_name(text: str) -> str:
+    """``text`` if it has at most MAX_NAME_CHARS characters; else its start followed by a
+    note saying it was cut, with a digest of the whole text so that two long names that
+    differ only after the cut stay different."""
+    if len(text) <= MAX_NAME_CHARS:
+        return text
+    digest = hashlib.blake2s(text.encode("utf-8", "surrogatepass"), digest_size=4).hexdigest()
+    note = f"... [cut from {len(text):,} characters, {digest}]"
+    return text[: MAX_NAME_CHARS - len(note)] + note
+
 
 #: How a message of ours begins. A worksheet function that cannot give a result returns one
 #: cell holding ``xlbridge: what to fix``, where a spreadsheet function would show an error

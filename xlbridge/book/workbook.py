@@ -75,6 +75,9 @@ class SheetData:
     converted: bool = False
     errors: dict[tuple[int, int], str] = field(default_factory=dict)
     no_value: set[tuple[int, int]] = field(default_factory=set)
+    #: None when the grid holds the whole sheet; else the grid holds only columns 1 to this
+    #: (a sheet too large to read whole is read as far as the references need).
+    cols_read: int | None = None
 
     @property
     def n_rows(self) -> int:
@@ -108,9 +111,17 @@ class Book:
         self._sheets: dict[str, SheetData] = {}
         self._structure = structure or Structure(sheets, {}, {}, {}, {})
 
-    def load_sheet(self, name: str) -> SheetData:  # pragma: no cover - abstract
-        """Read one sheet's values (each file format implements this)."""
+    def load_sheet(self, name: str, last_col: int | None = None
+                   ) -> SheetData:  # pragma: no cover - abstract
+        """Read one sheet's values, at least columns 1 to ``last_col`` (None: all of them;
+        each file format implements this)."""
         raise NotImplementedError
+
+    def formula_box(self, name: str) -> tuple[int, int, int, int] | None:
+        """(first row, first column, last row, last column) of the cells of a sheet that
+        may hold formulas; None if it holds none. Formats that cannot tell say the whole
+        sheet."""
+        return None if self.kind == "csv" else (1, 1, MAX_ROW, MAX_COL)
 
     def sheet_part(self, name: str) -> str | None:
         """The archive part holding a sheet's XML (None for CSV or when not known)."""
@@ -142,10 +153,13 @@ class Book:
             + ", ".join(repr(s) for s in self.sheet_names)
         )
 
-    def _sheet(self, name: str) -> SheetData:
+    def _sheet(self, name: str, last_col: int | None = None) -> SheetData:
+        """The sheet's values, holding at least columns 1 to ``last_col`` (None: all)."""
         sh = self._sheets.get(name)
-        if sh is None:
-            sh = self._sheets[name] = self.load_sheet(name)
+        if sh is not None and (sh.cols_read is None
+                               or (last_col is not None and last_col <= sh.cols_read)):
+            return sh
+        sh = self._sheets[name] = self.load_sheet(name, last_col)
         return sh
 
     def used_extent(self, sheet: str) -> tuple[int, int]:
@@ -182,8 +196,9 @@ class Book:
         if not ((area.whole_columns and area.r2 == MAX_ROW)
                 or (area.whole_rows and area.c2 == MAX_COL)):
             return area  # a cell range, or whole columns already cut at the data
-        sh = self._sheet(area.sheet or self.default_sheet)
-        if area.whole_columns and area.r2 == MAX_ROW:
+        whole_columns = area.whole_columns and area.r2 == MAX_ROW
+        sh = self._sheet(area.sheet or self.default_sheet, area.c2 if whole_columns else None)
+        if whole_columns:
             last = 0
             for i in range(min(sh.n_rows, MAX_ROW), 0, -1):
                 row = sh.grid[i - 1]
@@ -302,7 +317,7 @@ class Book:
 
     def read_columns(self, area: Area) -> list[list[Any]]:
         """Raw values of a resolved area, column by column (blanks beyond the data: None)."""
-        sh = self._sheet(area.sheet or self.default_sheet)
+        sh = self._sheet(area.sheet or self.default_sheet, area.c2)
         rows = sh.grid[area.r1 - 1 : area.r2]
         pad = area.n_rows - len(rows)
         conv = cell_value
@@ -334,7 +349,7 @@ class Book:
 
     def formulas_without_value(self, area: Area) -> list[tuple[int, int]]:
         """Cells in ``area`` holding a formula whose value was never saved."""
-        sh = self._sheet(area.sheet or self.default_sheet)
+        sh = self._sheet(area.sheet or self.default_sheet, area.c2)
         return sorted(rc for rc in sh.no_value if area.contains(*rc))
 
     def read(self, ref: str | Area, default_sheet: str | None = None) -> tuple[Area, list]:

@@ -10,74 +10,23 @@ not used here: it is needed only for writing.
 from __future__ import annotations
 
 import io
-import re
 import zipfile
 from pathlib import Path, PurePosixPath
 from typing import Any
 
-from xlbridge.book.refs import Area, RefError, col_number, parse_ref
-from xlbridge.book.safety import BookError, check_archive
+from xlbridge.book.refs import Area, RefError, col_letters, parse_ref, quote_sheet
+from xlbridge.book.safety import MAX_BLOCK_CELLS, BookError, check_archive, reader_guard
+from xlbridge.book.sheetscan import (
+    SheetScan,
+    cells_up_to_column,
+    far_cells,
+    scan_sheet,
+    scan_sheet_bytes,
+)
+from xlbridge.book.values import MAX_NAME_CHARS
 from xlbridge.book.workbook import Book, SheetData, Structure, TableInfo
 
 __all__ = ["XlsxBook", "part_relations", "read_structure", "workbook_part"]
-
-
-# --- targeted XML scans of a sheet part --------------------------------------------------
-
-_P = rb"(?:[A-Za-z_][\w.-]*:)?"  # optional namespace prefix
-_ERR_CELL = re.compile(rb"<" + _P + rb"c\s[^>]*?\bt\s*=\s*[\"']e[\"'][^>]*>")
-_FORMULA = re.compile(rb"<" + _P + rb"f[\s>/]")
-_CELL_END = re.compile(rb"</" + _P + rb"c>")
-_R_ATTR = re.compile(rb"\br\s*=\s*[\"']\$?([A-Za-z]{1,3})\$?([0-9]+)[\"']")
-_T_ATTR = re.compile(rb"\bt\s*=\s*[\"']([A-Za-z]+)[\"']")
-_V_TEXT = re.compile(rb"<" + _P + rb"v>([^<]*)</" + _P + rb"v>")
-_HAS_VALUE = re.compile(rb"<" + _P + rb"(?:v>[^<]|is[\s>])")
-
-
-def _rc(tag: bytes) -> tuple[int, int] | None:
-    m = _R_ATTR.search(tag)
-    if not m:
-        return None
-    return int(m.group(2)), col_number(m.group(1).decode("ascii"))
-
-
-def _scan_sheet_xml(data: bytes) -> tuple[dict[tuple[int, int], str], set[tuple[int, int]], bool]:
-    """Error cells {(row, col): "#N/A"}, formula cells without a saved value, and whether
-    some cell had no ``r`` attribute (then the scan is incomplete)."""
-    errors: dict[tuple[int, int], str] = {}
-    no_value: set[tuple[int, int]] = set()
-    incomplete = False
-    # Plain substring tests first: most data sheets hold neither errors nor formulas, and
-    # a regex pass over every cell of a 100,000-row sheet costs more than reading it.
-    prefixed = b"<sheetData" not in data
-    has_errors = prefixed or b't="e"' in data or b"t='e'" in data
-    has_formulas = prefixed or b"<f" in data
-    for m in _ERR_CELL.finditer(data) if has_errors else ():
-        rc = _rc(m.group(0))
-        if rc is None:
-            incomplete = True
-            continue
-        end = _CELL_END.search(data, m.end())
-        body = data[m.end() : end.start() if end else m.end()]
-        v = _V_TEXT.search(body)
-        errors[rc] = v.group(1).decode("utf-8", "replace").strip() if v else "#N/A"
-    for m in _FORMULA.finditer(data) if has_formulas else ():
-        start = data.rfind(b"<", 0, m.start())
-        tag_end = data.find(b">", start)
-        tag = data[start : tag_end + 1]
-        if not re.match(rb"<" + _P + rb"c[\s>]", tag):
-            continue
-        rc = _rc(tag)
-        if rc is None:
-            incomplete = True
-            continue
-        end = _CELL_END.search(data, m.end())
-        body = data[m.end() : end.start() if end else len(data)]
-        t = _T_ATTR.search(tag)
-        if _HAS_VALUE.search(body) or (t is not None and t.group(1) == b"str"):
-            continue
-        no_value.add(rc)
-    return errors, no_value, incomplete
 
 
 # --- workbook structure from the archive --------------------------------------------------
@@ -189,44 +138,104 @@ def read_structure(zf: zipfile.ZipFile, book_name: str) -> Structure:
                 tname, sheet, area.with_sheet(sheet), cols,
                 int(t.get("headerRowCount", "1") or 1), int(t.get("totalsRowCount", "0") or 0),
             )
+    named = ([("sheet", n) for n in sheets] + [("defined name", n) for n in spelling.values()]
+             + [("table", t.name) for t in tables.values()])
+    for kind, name in named:
+        if len(name) > MAX_NAME_CHARS:
+            raise BookError(
+                f"{book_name} has a {kind} of {len(name):,} characters ({name[:40]!r}...); "
+                f"names of more than {MAX_NAME_CHARS} characters are refused. Rename it in "
+                "a spreadsheet program and save again"
+            )
     return Structure(sheets, sheet_parts, names, spelling, tables)
 
 
 class XlsxBook(Book):
     def __init__(self, path: Path) -> None:
         check_archive(path)
-        try:
-            with zipfile.ZipFile(path) as zf:
-                structure = read_structure(zf, path.name)
-        except zipfile.BadZipFile as exc:
-            raise BookError(f"{path.name} is a damaged workbook archive: {exc}") from None
+        with reader_guard(path.name), zipfile.ZipFile(path) as zf:
+            structure = read_structure(zf, path.name)
         import python_calamine as pc
 
-        try:
+        with reader_guard(path.name):
             self._cal = pc.CalamineWorkbook.from_path(str(path))
-        except Exception as exc:  # calamine raises its own error classes, or ValueError
-            raise BookError(f"{path.name} cannot be read as a workbook: {exc}") from None
-        sheets = [m.name for m in self._cal.sheets_metadata
-                  if str(m.typ).endswith("WorkSheet")] or list(self._cal.sheet_names)
+            sheets = [m.name for m in self._cal.sheets_metadata
+                      if str(m.typ).endswith("WorkSheet")] or list(self._cal.sheet_names)
         if not sheets:
             raise BookError(f"{path.name} has no worksheets")
+        self._scans: dict[str, SheetScan] = {}
         super().__init__(path, "xlsx", sheets, structure)
 
-    def load_sheet(self, name: str) -> SheetData:
-        try:
-            grid = self._cal.get_sheet_by_name(name).to_python(skip_empty_area=False)
-        except Exception as exc:
-            raise BookError(f"{self.path.name}: sheet {name!r} cannot be read: {exc}") from None
-        sh = SheetData(name, grid)
+    def sheet_scan(self, name: str) -> SheetScan | None:
+        """The one pass over a sheet's XML (kept for the run); None if its part is unknown."""
         part = self.sheet_part(name)
-        if part:
-            with zipfile.ZipFile(self.path) as zf:
-                data = zf.read(part)
-            errors, no_value, incomplete = _scan_sheet_xml(data)
-            if incomplete:
-                errors, no_value = _scan_sheet_xml_slow(data)
-            sh.errors, sh.no_value = errors, no_value
+        if part is None:
+            return None
+        scan = self._scans.get(name)
+        if scan is None:
+            with reader_guard(self.path.name, name), zipfile.ZipFile(self.path) as zf:
+                scan = self._scans[name] = scan_sheet(zf, part)
+        return scan
+
+    def formula_box(self, name: str) -> tuple[int, int, int, int] | None:
+        scan = self.sheet_scan(name)
+        return super().formula_box(name) if scan is None else scan.formula_box
+
+    def used_extent(self, sheet: str) -> tuple[int, int]:
+        scan = self.sheet_scan(self.sheet_name(sheet))
+        return super().used_extent(sheet) if scan is None else (scan.last_row, scan.last_col)
+
+    def load_sheet(self, name: str, last_col: int | None = None) -> SheetData:
+        scan = self.sheet_scan(name)
+        if scan is None or scan.block_cells <= MAX_BLOCK_CELLS:
+            with reader_guard(self.path.name, name):
+                grid = self._cal.get_sheet_by_name(name).to_python(skip_empty_area=False)
+            sh = SheetData(name, grid)
+        else:
+            sh = self._load_columns(name, scan, last_col)
+        if scan is not None:
+            sh.errors, sh.no_value = scan.errors, scan.no_value
         return sh
+
+    def _load_columns(self, name: str, scan: SheetScan, last_col: int | None) -> SheetData:
+        """Columns 1 to ``last_col`` of a sheet too large to read whole: the reader is given
+        a copy of the sheet without the cells right of them."""
+        part = self.sheet_part(name)
+        assert part is not None
+        with reader_guard(self.path.name, name), zipfile.ZipFile(self.path) as zf:
+            data = zf.read(part)
+            need = scan.last_col if last_col is None else min(last_col, scan.last_col)
+            if not scan.regular or need >= scan.last_col:
+                raise self._too_large(name, data, scan)
+            kept = cells_up_to_column(data, need)
+            window = scan_sheet_bytes(kept)
+            if window.block_cells > MAX_BLOCK_CELLS:
+                raise self._too_large(name, kept, window)
+            buf = io.BytesIO()
+            with zipfile.ZipFile(buf, "w", zipfile.ZIP_STORED) as out:
+                others = set(self._structure.sheet_parts.values()) - {part}
+                for info in zf.infolist():
+                    if info.filename not in others:
+                        out.writestr(info.filename, kept if info.filename == part
+                                     else zf.read(info))
+            buf.seek(0)
+            import python_calamine as pc
+
+            with pc.CalamineWorkbook.from_filelike(buf) as cal:
+                grid = cal.get_sheet_by_name(name).to_python(skip_empty_area=False)
+        return SheetData(name, grid, cols_read=need)
+
+    def _too_large(self, name: str, data: bytes, scan: SheetScan) -> BookError:
+        by_row, by_col = far_cells(data, scan)
+        corner = f"A1:{col_letters(scan.last_col)}{scan.last_row}"
+        q = quote_sheet(name[:MAX_NAME_CHARS])
+        far = f"{q}!{by_row}" if by_row == by_col else f"{q}!{by_row} and {q}!{by_col}"
+        return BookError(
+            f"{self.path.name}: reading {q}!{corner} would hold {scan.block_cells:,} cells "
+            f"(the limit is {MAX_BLOCK_CELLS:,}) because of {far}, far from the other "
+            "data; delete what lies far outside the data (or refer only to the columns "
+            "that hold it) and try again"
+        )
 
     def close(self) -> None:
         super().close()
@@ -234,42 +243,3 @@ class XlsxBook(Book):
             self._cal.close()
         except Exception:
             pass
-
-
-def _scan_sheet_xml_slow(data: bytes) -> tuple[dict[tuple[int, int], str], set[tuple[int, int]]]:
-    """Full streaming parse for sheets whose cells omit their ``r`` attribute."""
-    from defusedxml.ElementTree import iterparse
-
-    errors: dict[tuple[int, int], str] = {}
-    no_value: set[tuple[int, int]] = set()
-    row, col = 0, 0
-    for event, el in iterparse(io.BytesIO(data), events=("start", "end"), forbid_dtd=True):
-        tag = _local(el.tag)
-        if event == "start":
-            if tag == "row":  # the row number must be known before its cells end
-                r = el.get("r")
-                row = int(r) if r and r.isdigit() else row + 1
-                col = 0
-            continue
-        if tag == "c":
-            ref = el.get("r")
-            if ref:
-                p = parse_ref(ref)
-                assert isinstance(p, Area)
-                row, col = p.r1, p.c1
-            else:
-                col += 1
-            kids = {_local(k.tag): k for k in el}
-            if el.get("t") == "e":
-                v = kids.get("v")
-                errors[(row, col)] = (v.text or "#N/A").strip() if v is not None else "#N/A"
-            if "f" in kids and el.get("t") != "str":
-                v = kids.get("v")
-                if (v is None or not (v.text or "")) and "is" not in kids:
-                    no_value.add((row, col))
-            el.clear()
-        elif tag == "row":
-            el.clear()
-    return errors, no_value
-
-

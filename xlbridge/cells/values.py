@@ -37,7 +37,7 @@ from typing import Any
 
 import numpy as np
 
-from ..book.values import is_error_code, is_error_text, serial_of
+from ..book.values import bounded_name, is_error_code, is_error_text, serial_of
 from .errors import CellError, CellErrorKind
 from .options import Options, parse_options
 
@@ -173,9 +173,14 @@ def _is_name(v: Any) -> bool:
     return isinstance(v, str) and bool(v.strip()) and not is_error_text(v)
 
 
+def _header_name(text: str) -> str:
+    """A header text as a name: spaces tidied, cut to MAX_NAME_CHARS with a note."""
+    return bounded_name(" ".join(text.split()))
+
+
 def _name_text(v: Any, what: str, col: int) -> str:
     if _is_name(v):
-        return " ".join(v.split())
+        return _header_name(v)
     if isinstance(v, float) and math.isfinite(v):
         return repr(int(v)) if v.is_integer() else repr(v)
     if isinstance(v, int) and not isinstance(v, bool) and not is_error_code(v):
@@ -194,7 +199,7 @@ def _split_header(g: Grid, names: str, what: str) -> tuple[tuple[str, ...] | Non
     if names == "yes":
         return tuple(_name_text(v, what, j) for j, v in enumerate(first)), rest
     if all(_is_name(v) for v in first):
-        return tuple(" ".join(v.split()) for v in first), rest
+        return tuple(_header_name(v) for v in first), rest
     return None, g
 
 
@@ -317,7 +322,7 @@ def group_key(v: Any) -> tuple[Any, bool]:
         s = v.strip()
         if is_error_text(s):
             return None, False
-        return (s if s else None), True
+        return (bounded_name(s) if s else None), True
     if isinstance(v, (bool, np.bool_)):
         return bool(v), True
     if isinstance(v, (int, np.integer)):

@@ -1,0 +1,233 @@
+"""One streaming pass over a sheet's XML: its extent and the facts calamine does not report.
+
+The pass reads the part in chunks and finds, for every cell, its position (the largest row
+and column give the block a reader must hold), which cells hold error values, which formula
+cells have no saved value, and whether the sheet has formulas at all. Its result is kept per
+sheet by the workbook, so each sheet's XML is scanned once per run.
+
+Cells written the usual way (``<c r="B7" ...>``, which every spreadsheet program writes) are
+read with regular expressions over whole chunks; a sheet with any other cell syntax (no
+``r`` attribute, namespace prefixes, other quoting) is read with a streaming XML parser.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+import zipfile
+from dataclasses import dataclass, field
+
+from xlbridge.book.refs import Area, RefError, col_letters, col_number, parse_ref
+from xlbridge.book.safety import BookError
+
+__all__ = ["SheetScan", "cells_up_to_column", "far_cells", "scan_sheet", "scan_sheet_bytes"]
+
+_CHUNK = 1 << 22  # bytes of XML inflated per step; pieces end at a row end
+
+_P = rb"(?:[A-Za-z_][\w.-]*:)?"  # optional namespace prefix
+_ERR_CELL = re.compile(rb"<" + _P + rb"c\s[^>]*?\bt\s*=\s*[\"']e[\"'][^>]*>")
+_FORMULA = re.compile(rb"<" + _P + rb"f[\s>/]")
+_CELL_START = re.compile(rb"<" + _P + rb"c[\s>]")
+_CELL_END = re.compile(rb"</" + _P + rb"c>")
+_R_ATTR = re.compile(rb"\br\s*=\s*[\"']\$?([A-Za-z]{1,3})\$?([0-9]+)[\"']")
+_T_ATTR = re.compile(rb"\bt\s*=\s*[\"']([A-Za-z]+)[\"']")
+_V_TEXT = re.compile(rb"<" + _P + rb"v>([^<]*)</" + _P + rb"v>")
+_HAS_VALUE = re.compile(rb"<" + _P + rb"(?:v>[^<]|is[\s>])")
+#: The usual cell start tag; anything else that starts a cell makes the sheet irregular.
+_REGULAR_REF = re.compile(rb'<c r="([A-Z]{1,3})([0-9]{1,7})"')
+_IRREGULAR_CELL = re.compile(rb'<c(?! r="[A-Z]{1,3}[0-9]{1,7}")[\s>]')
+_PREFIXED_CELL = re.compile(rb"<[A-Za-z_][\w.-]*:c[\s>]")
+_ROW_END = b"</row>"
+
+
+@dataclass
+class SheetScan:
+    """What one pass over a sheet's XML found. Rows and columns count from 1; the extent
+    covers every cell element, with or without a value."""
+
+    last_row: int = 0
+    last_col: int = 0
+    errors: dict[tuple[int, int], str] = field(default_factory=dict)
+    no_value: set[tuple[int, int]] = field(default_factory=set)
+    #: (first row, first column, last row, last column) of the cells holding formulas
+    formula_box: tuple[int, int, int, int] | None = None
+    regular: bool = True  # every cell is written <c r="A1" ...> (a regex can filter them)
+
+    @property
+    def has_formulas(self) -> bool:
+        return self.formula_box is not None
+
+    def add_formula(self, rc: tuple[int, int]) -> None:
+        r, c = rc
+        b = self.formula_box
+        self.formula_box = (r, c, r, c) if b is None else (
+            min(b[0], r), min(b[1], c), max(b[2], r), max(b[3], c))
+
+    @property
+    def block_cells(self) -> int:
+        """Cells of the block from A1 to the last row and column (what a reader holds)."""
+        return self.last_row * self.last_col
+
+
+def _rc(tag: bytes) -> tuple[int, int] | None:
+    m = _R_ATTR.search(tag)
+    if not m:
+        return None
+    return int(m.group(2)), col_number(m.group(1).decode("ascii"))
+
+
+def _details(piece: bytes, scan: SheetScan) -> None:
+    """Error cells and formula cells without a saved value in a piece of regular XML."""
+    if b't="e"' in piece or b"t='e'" in piece:
+        for m in _ERR_CELL.finditer(piece):
+            rc = _rc(m.group(0))
+            if rc is None:
+                continue
+            end = _CELL_END.search(piece, m.end())
+            body = piece[m.end(): end.start() if end else m.end()]
+            v = _V_TEXT.search(body)
+            scan.errors[rc] = v.group(1).decode("utf-8", "replace").strip() if v else "#N/A"
+    if _FORMULA.search(piece) is None:
+        return
+    for m in _FORMULA.finditer(piece):
+        start = piece.rfind(b"<", 0, m.start())
+        tag = piece[start: piece.find(b">", start) + 1]
+        if not _CELL_START.match(tag):
+            continue
+        rc = _rc(tag)
+        if rc is None:
+            continue
+        scan.add_formula(rc)
+        end = _CELL_END.search(piece, m.end())
+        body = piece[m.end(): end.start() if end else len(piece)]
+        t = _T_ATTR.search(tag)
+        if _HAS_VALUE.search(body) or (t is not None and t.group(1) == b"str"):
+            continue
+        scan.no_value.add(rc)
+
+
+def _regular_piece(piece: bytes, scan: SheetScan) -> bool:
+    """Scan a piece of the XML; False if some cell is not written the usual way."""
+    if _IRREGULAR_CELL.search(piece) or (b":c" in piece and _PREFIXED_CELL.search(piece)):
+        return False
+    cols = set(re.findall(rb'<c r="([A-Z]{1,3})[0-9]', piece))
+    if cols:
+        widest = max(cols, key=lambda c: (len(c), c))
+        scan.last_col = max(scan.last_col, col_number(widest.decode("ascii")))
+        rows = re.findall(rb'<c r="[A-Z]{1,3}([0-9]{1,7})"', piece)
+        scan.last_row = max(scan.last_row, max(map(int, rows)))
+    _details(piece, scan)
+    return True
+
+
+def scan_sheet_bytes(data: bytes) -> SheetScan:
+    """Scan a whole sheet part held in memory."""
+    scan = SheetScan()
+    if not _regular_piece(data, scan):
+        return _scan_slow(io.BytesIO(data))
+    return scan
+
+
+def scan_sheet(zf: zipfile.ZipFile, part: str) -> SheetScan:
+    """Scan a sheet part of an open archive in one streaming pass."""
+    scan = SheetScan()
+    carry = b""
+    with zf.open(part) as fh:
+        while True:
+            chunk = fh.read(_CHUNK)
+            buf = carry + chunk if carry else chunk
+            if not chunk:
+                piece, carry = buf, b""
+            else:
+                cut = buf.rfind(_ROW_END)
+                if cut < 0:
+                    carry = buf  # a row longer than a chunk: keep reading
+                    continue
+                piece, carry = buf[: cut + len(_ROW_END)], buf[cut + len(_ROW_END):]
+            if piece and not _regular_piece(piece, scan):
+                with zf.open(part) as again:
+                    return _scan_slow(again)
+            if not chunk:
+                return scan
+
+
+def _scan_slow(stream: io.IOBase) -> SheetScan:
+    """Full streaming parse, for sheets whose cells are not all written the usual way;
+    positions follow the reader's rules (a cell without ``r`` is next to the previous one)."""
+    from defusedxml.ElementTree import iterparse
+
+    scan = SheetScan(regular=False)
+    row, col = 0, 0
+    try:
+        for event, el in iterparse(stream, events=("start", "end"), forbid_dtd=True):
+            tag = el.tag.rsplit("}", 1)[-1]
+            if event == "start":
+                if tag == "row":  # the row number must be known before its cells end
+                    r = el.get("r")
+                    row = int(r) if r and r.isdigit() else row + 1
+                    col = 0
+                continue
+            if tag == "c":
+                ref = el.get("r")
+                if ref:
+                    try:
+                        p = parse_ref(ref)
+                    except RefError:
+                        raise BookError(f"a cell is at {ref[:40]!r}, which is not a cell "
+                                        "address of a worksheet") from None
+                    if not isinstance(p, Area):
+                        raise BookError(f"a cell is at {ref[:40]!r}, not a cell address")
+                    row, col = p.r1, p.c1
+                else:
+                    col += 1
+                scan.last_row, scan.last_col = max(scan.last_row, row), max(scan.last_col, col)
+                kids = {k.tag.rsplit("}", 1)[-1]: k for k in el}
+                if el.get("t") == "e":
+                    v = kids.get("v")
+                    scan.errors[(row, col)] = (v.text or "#N/A").strip() if v is not None \
+                        else "#N/A"
+                if "f" in kids:
+                    scan.add_formula((row, col))
+                    if el.get("t") != "str":
+                        v = kids.get("v")
+                        if (v is None or not (v.text or "")) and "is" not in kids:
+                            scan.no_value.add((row, col))
+                el.clear()
+            elif tag == "row":
+                el.clear()
+    except BookError:
+        raise
+    except Exception as exc:  # ParseError, defusedxml's refusals: a damaged part
+        raise BookError(f"its XML cannot be read ({str(exc)[:200]})") from None
+    return scan
+
+
+def _greater_letters(letters: str) -> bytes:
+    """A regex matching column letters after ``letters`` (longer, or same length and later)."""
+    n = len(letters)
+    alts = [rb"[A-Z]{%d,3}" % (n + 1)] if n < 3 else []
+    for i, ch in enumerate(letters):
+        if ch != "Z":
+            nxt = chr(ord(ch) + 1)
+            rest = rb"[A-Z]{%d}" % (n - i - 1) if n - i - 1 else b""
+            alts.append(letters[:i].encode() + b"[" + nxt.encode() + b"-Z]" + rest)
+    return b"(?:" + b"|".join(alts) + b")" if alts else b"(?!)"
+
+
+def cells_up_to_column(data: bytes, last_col: int) -> bytes:
+    """The sheet XML of a regular sheet without the cells right of column ``last_col``."""
+    beyond = _greater_letters(col_letters(last_col))
+    pattern = re.compile(rb'<c r="' + beyond + rb'[0-9]{1,7}"[^>]*?(?:/>|>.*?</c>)', re.S)
+    return pattern.sub(b"", data)
+
+
+def far_cells(data: bytes, scan: SheetScan) -> tuple[str, str]:
+    """A1 addresses of a cell in the last row and a cell in the last column (for messages)."""
+    col = col_letters(scan.last_col)
+    by_row = by_col = None
+    if scan.regular:
+        m = re.search(rb'<c r="([A-Z]{1,3})' + str(scan.last_row).encode() + b'"', data)
+        by_row = m.group(1).decode() + str(scan.last_row) if m else None
+        m = re.search(rb'<c r="' + col.encode() + rb'([0-9]{1,7})"', data)
+        by_col = col + m.group(1).decode() if m else None
+    return by_row or f"{col}{scan.last_row}", by_col or f"{col}{scan.last_row}"
