@@ -236,3 +236,21 @@ def test_a_cer_form_without_method_and_bad_options_list_what_to_give():
     msg = ws.XB_COEFS(Y, X, "power", "method=fast")[0][0]
     assert msg.startswith("xlbridge:") and all(m in msg for m in ("log", "mupe", "zmpe", "ols"))
     assert "base_year=" in ws.XB_BASEYEAR([1.0], [2020.0], [[2020.0, 1.0]])[0][0]
+
+
+@pytest.mark.parametrize("name, extra", [("XB_CHECKS", ()), ("XB_ROWDIAG", ()),
+                                         ("XB_OPTIMUM", ()), ("XB_MARGINAL", ([[30.0]],))])
+def test_polynomial_tables_refuse_a_cer_with_a_message(name, extra):
+    out = ws.FUNCTIONS[name](Y, X, "power", *extra, "method=mupe")
+    assert len(out) == 1 and out[0][0].startswith("xlbridge:")
+    assert "internal error" not in out[0][0] and "XB_CERCARD" in out[0][0]
+
+
+def test_degree_scan_reads_method_as_the_remedy_it_stands_for():
+    # on polynomials, method=mupe means error=percent and method=log means log=yes (the
+    # engine's rule for fit); zmpe has no polynomial meaning and is refused with a message
+    assert ws.XB_DEGREESCAN(Y, X, 3.0, "method=mupe") == ws.XB_DEGREESCAN(Y, X, 3.0,
+                                                                          "error=percent")
+    assert ws.XB_DEGREESCAN(Y, X, 3.0, "method=log") == ws.XB_DEGREESCAN(Y, X, 3.0, "log=yes")
+    msg = ws.XB_DEGREESCAN(Y, X, 3.0, "method=zmpe")[0][0]
+    assert msg.startswith("xlbridge:") and "internal error" not in msg

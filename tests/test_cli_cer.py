@@ -168,3 +168,11 @@ def test_report_of_a_cer_puts_its_card_on_top(book, tmp_path, capsys):
     api = xlbridge.fit(COST, WEIGHT, "power", method="zmpe", names=("weight",))
     assert api.equation().replace("y = ", "cost = ") in page
     assert page.count("data:image/png;base64,") == 2
+
+
+@pytest.mark.parametrize("command", ["checks", "rows", "optimum"])
+def test_polynomial_commands_refuse_a_cer_as_a_usage_error(book, capsys, command):
+    code, out, err = run([command, book, "--y", "Data!D:D", "--x", "Data!A:A", "--model",
+                          "power", "--options", "method=mupe"], capsys)
+    assert code == 2 and out == "" and err.startswith("xlbridge:")
+    assert "internal error" not in err and "card" in err

@@ -22,7 +22,11 @@ from ..engine.terms import MAX_DEGREE
 from .cache import SCAN_CACHE, content_key
 from .errors import CellError, CellErrorKind, Table
 from .options import Options
-from .prepare import FitInput, fit_cells, fit_prepared, prepare_fit
+from .prepare import FitInput, prepare_fit
+
+# the tables here are of polynomial and surface fits: a CER form gets a message saying so
+from .prepare import polynomial_cells as fit_cells
+from .prepare import polynomial_prepared as fit_prepared
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import drop_reason, single_value
 
@@ -62,7 +66,7 @@ def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
     def compute() -> DegreeScan:
         try:
             return scan_degrees(inp.y, inp.x[:, 0], top, folds=opts.folds, weights=inp.weights,
-                                **opts.fit_kwargs())
+                                **opts.polynomial_kwargs())
         except ModelError as exc:
             raise CellError.from_model(exc) from None
 
@@ -230,7 +234,7 @@ def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> F
     try:
         if k == "degrees":
             fig = degree_scan(scan_degrees(inp.y, inp.x[:, 0], p.top, folds=inp.options.folds,
-                                           **inp.options.fit_kwargs()))
+                                           **inp.options.polynomial_kwargs()))
         elif k == "contour":
             try:
                 opt = optimum(res)

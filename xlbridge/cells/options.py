@@ -262,6 +262,19 @@ class Options:
             out.pop("correction", None)
         return out
 
+    def polynomial_kwargs(self) -> dict[str, Any]:
+        """``fit_kwargs`` for the engine calls that take polynomial and surface models only
+        (the degree scan): ``method`` becomes the remedy it stands for on those models, as
+        ``xlbridge.fit`` reads it (``engine.cer.model_remedy``; zmpe is refused there)."""
+        from ..engine.cer import model_remedy
+
+        out = self.fit_kwargs()
+        out.pop("correction", None)
+        method = out.pop("method", None)
+        if method is not None:
+            out["log"], out["error"] = model_remedy(method)
+        return out
+
     def to_text(self, only_changed: bool = True) -> str:
         """Canonical options text that :func:`parse_options` reads back to equal options."""
         parts = []

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from ..engine import FitResult, ModelError, fit
+from ..engine import CerResult, FitResult, ModelError, fit
 from ..engine.cer import METHODS, is_form
 from ..engine.errors import ModelErrorKind
 from .cache import FIT_CACHE, content_key
@@ -33,7 +33,7 @@ from .values import (
 )
 
 __all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells", "model_failure",
-           "sheet_row_text"]
+           "polynomial_cells", "polynomial_prepared", "sheet_row_text"]
 
 SHAPE = CellErrorKind.SHAPE
 
@@ -166,6 +166,25 @@ def _fit_now(inp: FitInput) -> FitResult:
 def fit_prepared(inp: FitInput) -> FitResult:
     """Fit cleaned input, once per content (bounded LRU cache shared by all functions)."""
     return FIT_CACHE.get_or_compute(inp.key(), lambda: _fit_now(inp))
+
+
+def polynomial_prepared(inp: FitInput) -> FitResult:
+    """``fit_prepared`` for the tables of polynomial and surface fits only (checks, row
+    diagnostics, optimum, slopes, figures): a CER form is refused, naming what to use."""
+    res = fit_prepared(inp)
+    if isinstance(res, CerResult):
+        raise CellError(f"this table is made for polynomial and surface models; for a "
+                        f"{res.form} CER use the coefficients, statistics, predictions, "
+                        "percentiles (XB_PLEVELS) or its card (XB_CERCARD)",
+                        CellErrorKind.OPTIONS)
+    return res
+
+
+def polynomial_cells(y: Any, x: Any, model: Any, options: Any = None
+                     ) -> tuple[FitResult, Options]:
+    """``fit_cells`` for the tables of polynomial and surface fits only."""
+    inp = prepare_fit(y, x, model, options)
+    return polynomial_prepared(inp), inp.options
 
 
 def fit_cells(y: Any, x: Any, model: Any, options: Any = None) -> tuple[FitResult, Options]:

@@ -50,7 +50,7 @@ def run_card(args: argparse.Namespace) -> int:
     from xlbridge.cells.cer import card_facts, card_table
     from xlbridge.engine import CerResult
 
-    f = fit_from_args(args)
+    f = fit_from_args(args, cer=True)
     if not isinstance(f.result, CerResult):
         raise UsageError("the CER card documents a power, factor or exponential model with a "
                          "method: --model power --options method=mupe")
@@ -72,7 +72,7 @@ def run_plevels(args: argparse.Namespace) -> int:
     from xlbridge.cells.cer import plevels_table
     from xlbridge.engine import percentiles
 
-    f = fit_from_args(args)
+    f = fit_from_args(args, cer=True)
     nx_area, new_x = read_points(f, args, "new-x", args.new_x)
     opts = f.inp.options
     with as_usage(f"--new-x {args.new_x}: "):

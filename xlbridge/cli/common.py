@@ -361,9 +361,10 @@ class Fitted:
     result: Any
 
 
-def fit_from_args(args: argparse.Namespace, model: Any = None) -> Fitted:
+def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = False) -> Fitted:
     """Read --y/--x/--weights and fit --model (or ``model``): a bad input exits 2, a model
-    that cannot be fitted to data that read well exits 1."""
+    that cannot be fitted to data that read well exits 1. A CER form (--model power with
+    method= in --options) only where ``cer`` says the command takes one."""
     from xlbridge import cells
 
     book = open_book(args.book)
@@ -384,6 +385,10 @@ def fit_from_args(args: argparse.Namespace, model: Any = None) -> Fitted:
                                 weights=w)
         # a model text that cannot be read is a usage error, not a failed fit (a CER form
         # is not a term list: the engine checks it with its method)
+        if is_form(inp.model) and inp.options.method is not None and not cer:
+            raise UsageError(f"--model {inp.model} with a method is a cost-estimating "
+                             "relationship; this command is made for polynomial and surface "
+                             "models (for a CER: fit, predict, plevels, card, report)")
         if is_form(inp.model) and inp.options.method is None:
             raise UsageError(f"--model {inp.model} is a cost-estimating-relationship form: "
                              "give its method in --options, e.g. method=mupe (log, mupe, "

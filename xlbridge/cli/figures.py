@@ -44,7 +44,7 @@ def _scan(f: Fitted, max_degree: int) -> Any:
     inp = f.inp
     with as_failure():
         return scan_degrees(inp.y, inp.x[:, 0], max_degree, folds=inp.options.folds,
-                            weights=inp.weights, **inp.options.fit_kwargs())
+                            weights=inp.weights, **inp.options.polynomial_kwargs())
 
 
 def run_plot(args: argparse.Namespace) -> int:
@@ -87,7 +87,7 @@ def run_report(args: argparse.Namespace) -> int:
         raise UsageError(f"--out {args.out.name}: the report is an .html file")
     from xlbridge.engine import CerResult
 
-    f = fit_from_args(args)
+    f = fit_from_args(args, cer=True)
     src = Source(file=f.book.path.name, y_ref=f.y_area.label(), x_ref=f.x_area.label(),
                  options=f.inp.options.to_text())
     if isinstance(f.result, CerResult):  # a CER: its card on top (report.build_cer_report)

@@ -40,7 +40,7 @@ def run_fit(args: argparse.Namespace) -> int:
     from xlbridge.cells.cerrows import model_title, rows_used
     from xlbridge.cells.tables import split_notes
 
-    f = fit_from_args(args)
+    f = fit_from_args(args, cer=True)
     res, opts = f.result, f.inp.options
     with_header = opts.replace(header=True)
     coefs = cells.coef_table(res, with_header)
@@ -82,7 +82,7 @@ def run_predict(args: argparse.Namespace) -> int:
     from xlbridge.cells import PREDICT_COLUMNS
     from xlbridge.cells.cerrows import model_title
 
-    f = fit_from_args(args)
+    f = fit_from_args(args, cer=True)
     nx_area, new_x = read_points(f, args, "new-x", args.new_x)
     opts = f.inp.options
     with as_usage(f"--new-x {args.new_x}: "):
@@ -126,7 +126,7 @@ def run_degrees(args: argparse.Namespace) -> int:
     with as_failure():
         scan = scan_degrees(inp.y, inp.x[:, 0] if inp.x.shape[1] == 1 else inp.x,
                             args.max_degree, folds=opts.folds, weights=inp.weights,
-                            **opts.fit_kwargs())
+                            **opts.polynomial_kwargs())
     table = degrees_table(scan, opts.replace(header=True))
     return emit_tables(args, f, "degrees", table, scan.to_dict(),
                        f", degrees 1-{args.max_degree}")
