@@ -87,7 +87,8 @@ def _details(piece: bytes, scan: SheetScan) -> None:
             body = piece[m.end(): end.start() if end else m.end()]
             v = _V_TEXT.search(body)
             scan.errors[rc] = v.group(1).decode("utf-8", "replace").strip() if v else "#N/A"
-    if _FORMULA.search(piece) is None:
+    # A plain substring test first: the regex, with its optional prefix, tries every "<".
+    if (b"<f" not in piece and b":f" not in piece) or _FORMULA.search(piece) is None:
         return
     for m in _FORMULA.finditer(piece):
         start = piece.rfind(b"<", 0, m.start())
