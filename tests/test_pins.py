@@ -166,3 +166,23 @@ def test_pin_and_verify_write_no_workbook(pinned, capsys) -> None:
     after = {p.name: sha256(p) for p in folder.iterdir()}
     assert set(after) - set(before) == {"again.json"}
     assert {k: after[k] for k in before} == before
+
+
+def test_card_date_is_not_compared_but_its_numbers_are(tmp_path: Path, capsys) -> None:
+    """A CER card records the day it was made: a pin of yesterday still verifies; a changed
+    number in the same card is still caught."""
+    book = cost_book(tmp_path / "cer.xlsx", formulas={"Model": {
+        "A1": f"=XB_CERCARD({D}!B:B,{D}!A:A,\"power\",\"method=mupe\")"}})
+    pins = tmp_path / "cer.pins.json"
+    assert run(["pin", book, "--out", pins], capsys)[0] == 0
+    doc = json.loads(pins.read_text(encoding="utf-8"))
+    (cell,) = doc["cells"].values()
+    rows = {r[0]: r for r in cell["values"]}
+    rows["date"][1] = "2001-01-01"  # pinned long ago
+    pins.write_text(json.dumps(doc), encoding="utf-8")
+    code, out, err = run(["verify", book, "--pins", pins], capsys)
+    assert code == 0, out + err
+    rows["see"][1] = rows["see"][1] * 1.01
+    pins.write_text(json.dumps(doc), encoding="utf-8")
+    code, out, err = run(["verify", book, "--pins", pins], capsys)
+    assert code == 1 and "see" in out + err

@@ -34,13 +34,15 @@ from .prepare import FitInput, fit_prepared, prepare_fit, sheet_row_text
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import OK, CleanCells, clean_cells, drop_summary, drops_text, options_value, row_codes
 
-__all__ = ["CANDIDATE_COLUMNS", "CardFacts", "baseyear_cells", "candidates_cells",
+__all__ = ["CANDIDATE_COLUMNS", "CARD_DATE", "CardFacts", "baseyear_cells", "candidates_cells",
            "candidates_table", "card_cells", "card_facts", "card_table", "learning_cells",
            "learning_table", "plevels_cells", "plevels_table", "run_engine"]
 
 CANDIDATE_COLUMNS = ("rank", "form", "method", "drivers", "n", "see", "cv", "spe", "r2_unit",
                      "bias_percent", "worst_p", "max_vif", "verdict")
 SHAPE = CellErrorKind.SHAPE
+#: The card's item that records the day it was made (a pin file does not compare it).
+CARD_DATE = "date"
 
 
 def run_engine(fn: Callable[[], Any], header_rows: int) -> Any:
@@ -314,7 +316,7 @@ def card_facts(res: CerResult, inp_key: str, options: Options | None = None,
               ("P20 vs estimate percent", 100 * (p20 / est - 1)),
               ("P80 vs estimate percent", 100 * (p80 / est - 1)),
               ("base_year", opts.base_year if opts.base_year is not None else "not stated"),
-              ("date", (today or dt.datetime.now(dt.timezone.utc).date()).isoformat()),
+              (CARD_DATE, (today or dt.datetime.now(dt.timezone.utc).date()).isoformat()),
               ("input content hash", inp_key[:16]), ("level", res.level)]
     return CardFacts(tuple(items), tuple(cautions(res, opts.base_year)))
 
