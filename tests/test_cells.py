@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import math
+from dataclasses import fields
 
 import numpy as np
 import pytest
@@ -17,6 +18,7 @@ from openpyxl.utils.datetime import to_excel
 
 from xlbridge import cells
 from xlbridge.cells import (
+    STATS_NOTE,
     CellError,
     CellErrorKind,
     clean_cells,
@@ -27,11 +29,13 @@ from xlbridge.cells import (
 )
 from xlbridge.cells.cache import FIT_CACHE
 from xlbridge.cells.options import Options, OptionsError
-from xlbridge.engine import ModelError
+from xlbridge.cells.statrows import QUESTIONS
+from xlbridge.engine import FitStats, ModelError
 from xlbridge.engine.errors import ModelError as EngineModelError
 from xlbridge.engine.errors import ModelErrorKind
 
 from .conftest import nist_set
+from .tablecheck import stats_by_field, stats_notes
 
 NA = -2146826246  # #N/A as COM hands it without err_to_str
 SPILL = -2146826243  # a newer error value: a plain negative int
@@ -262,7 +266,7 @@ def test_nist_pontius_through_cells_with_a_header():
     # NIST StRD, Linear Least Squares Regression, Pontius
     assert [r[0] for r in table[1:]] == ["intercept", "load", "load^2"]
     assert [r[1] for r in table[1:]] == pytest.approx(cert["estimates"], rel=1e-9)
-    assert [r[2] for r in table[1:]] == pytest.approx(cert["std_errors"], rel=1e-8)
+    assert [r[4] for r in table[1:]] == pytest.approx(cert["std_errors"], rel=1e-8)
 
 
 # --- the cache -------------------------------------------------------------------------------
@@ -314,11 +318,13 @@ def test_coef_table_layout_and_header_option():
     x, y = invented()
     t = cells.coefs_cells(y, x, 2.0)
     assert_plain_table(t)
-    assert t[0] == ["term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower",
-                    "ci_upper", "vif", "vif_centered"]
+    assert t[0] == ["term", "estimate", "low (95%)", "high (95%)", "standard error", "t", "p",
+                    "VIF", "VIF, centered"]
     assert [r[1] for r in t[1:]] == pytest.approx(lstsq_poly(x, y, 2), rel=1e-10)
+    assert all(r[2] < r[1] < r[3] for r in t[1:])  # the interval brackets the estimate
     assert t[1][7:] == ["", ""]  # VIFs do not apply to the intercept
     assert cells.coefs_cells(y, x, 2.0, "header=no") == t[1:]
+    assert cells.coefs_cells(y, x, 2.0, "level=0.9")[0][2:4] == ["low (90%)", "high (90%)"]
 
 
 def test_exact_fit_blanks_infinite_values_and_says_why():
@@ -334,8 +340,7 @@ def test_exact_fit_blanks_infinite_values_and_says_why():
     flat = [v for r in coefs + stats for v in r]
     assert "" in flat
     assert any(isinstance(v, str) and "blank cells" in v for v in flat)
-    f_row = next(r for r in stats if r[0] == "f_stat")
-    assert f_row[1] == ""
+    assert stats_by_field(stats)["f_stat"] == ""
 
 
 def test_stats_table_rows():
@@ -344,15 +349,18 @@ def test_stats_table_rows():
     y2[4] = None
     t = cells.stats_cells(y2, x, 2.0)
     assert_plain_table(t)
-    d = {r[0]: r[1] for r in t[1:] if r[0] != "note"}
-    assert t[0] == ["statistic", "value"]
+    d = stats_by_field(t)
+    assert t[0] == ["question", "measure", "value"]
+    order = [QUESTIONS.index(r[0]) for r in t[1:] if r[0] != STATS_NOTE]
+    assert order == sorted(order) and "other" not in [r[0] for r in t]  # grouped, all named
+    assert set(d) >= {f.name for f in fields(FitStats)} | {"model", "n_dropped", "level"}
     assert d["model"] == "degree 2" and d["n_dropped"] == 1.0
     assert d["n_used"] == float(len(x) - 1) and d["level"] == 0.95
     keep = [i for i in range(len(x)) if i != 4]
     xs, ys = np.array(x)[keep], np.array(y)[keep]
     resid = ys - np.polyval(np.polyfit(xs, ys, 2), xs)
     assert d["sse"] == pytest.approx(float(resid @ resid), rel=1e-9)
-    notes = [r[1] for r in t if r[0] == "note"]
+    notes = stats_notes(t)
     assert any("1 row dropped (blank 1)" in n for n in notes)
 
 

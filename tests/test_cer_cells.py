@@ -20,6 +20,8 @@ from scipy import stats as sps
 from xlbridge import worksheet as ws
 from xlbridge.cells import cer as cer_cells
 
+from .tablecheck import stats_by_field
+
 RNG = np.random.default_rng(2031)
 WEIGHT = np.round(np.sort(RNG.uniform(5, 90, 14)), 2)
 COST = np.round(7.5 * WEIGHT**0.72 * np.exp(RNG.normal(0, 0.08, WEIGHT.size)), 2)
@@ -28,6 +30,8 @@ X = ["weight"] + WEIGHT.tolist()
 
 
 def as_dict(table):
+    if table[0] == ["question", "measure", "value"]:  # the statistics block
+        return stats_by_field(table)
     return {r[0]: r[1] for r in table[1:] if r[0] not in ("note", "caution")}
 
 

@@ -32,6 +32,7 @@ from .bookfactory import (
     sha256,
 )
 from .conftest import NIST_DIR, lre, nist_sets
+from .tablecheck import stats_by_field
 
 Y, X = "'Site data'!B:B", "'Site data'!A:A"
 
@@ -143,10 +144,11 @@ def test_table_and_csv_formats(book: Path, capsys) -> None:
                        capsys)
     assert code == 0
     rows = list(csv.reader(io.StringIO(out)))
-    assert rows[0][:3] == ["term", "estimate", "std_error"]
+    assert rows[0][:5] == ["term", "estimate", "low (95%)", "high (95%)", "standard error"]
     assert [r[0] for r in rows[1:4]] == list(res.terms)
     assert [float(r[1]) for r in rows[1:4]] == [c.estimate for c in res.coefficients]
-    stats = {r[0]: r[1] for r in rows[5:] if len(r) == 2}
+    assert [float(r[4]) for r in rows[1:4]] == [c.std_error for c in res.coefficients]
+    stats = stats_by_field([r for r in rows[5:] if len(r) == 3])
     assert float(stats["r2"]) == res.stats.r2
 
 

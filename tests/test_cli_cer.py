@@ -58,7 +58,7 @@ def test_fit_table_names_the_cer_and_prints_the_equation(book, capsys):
                           "exponential", "--options", "method=zmpe"], capsys)
     assert code == 0, err
     assert "exponential CER by zmpe" in out and "equation: cost = " in out
-    assert "sum_percent_errors" in out
+    assert "sum of percent errors" in out  # the ZMPE row of the statistics block
 
 
 def test_base_year_option_converts_the_costs_before_fitting(book, capsys):

@@ -32,7 +32,9 @@ def test_groups_function_matches_fit_per_group():
     X = [["size"]] + [[float(v)] for v in size]
     t = ws.XB_GROUPS(G, Y, X, 2.0)
     head, *rows = t
-    assert head[:4] == ["group", "n_used", "intercept", "intercept_se"]
+    assert head == ["group", "rows used", "R²", "adjusted R²", "SEE", "intercept",
+                    "intercept: standard error", "size", "size: standard error", "size^2",
+                    "size^2: standard error", "flag"]
     body = {r[0]: dict(zip(head, r)) for r in rows if not str(r[0]).startswith("note:")}
     assert set(body) == {"pumps", "seals", "valves"}
     assert any("group cell holds an error" in str(r[0]) for r in rows)
@@ -42,11 +44,13 @@ def test_groups_function_matches_fit_per_group():
             keep[4] = False  # data row 5 (cell row 6) had the error
         ref = fit(price[keep], size[keep], 2)
         got = body[name]
-        assert got["n_used"] == keep.sum()
+        assert got["rows used"] == keep.sum()
         for term, c in zip(("intercept", "size", "size^2"), ref.coefficients):
             assert got[term] == pytest.approx(c.estimate, rel=1e-12)
-            assert got[f"{term}_se"] == pytest.approx(c.std_error, rel=1e-12)
-        assert got["rmse"] == pytest.approx(ref.stats.rmse, rel=1e-12)
+            assert got[f"{term}: standard error"] == pytest.approx(c.std_error, rel=1e-12)
+        assert got["SEE"] == pytest.approx(ref.stats.rmse, rel=1e-12)
+        assert got["R²"] == pytest.approx(ref.stats.r2, rel=1e-10)
+        assert got["adjusted R²"] == pytest.approx(ref.stats.adj_r2, rel=1e-10)
 
 
 def test_groups_function_messages():

@@ -39,7 +39,10 @@ def test_degrees_match_api():
     scan = scan_degrees(y, x, 4, folds=5)
     assert [r["degree"] for r in rows] == [1.0, 2.0, 3.0, 4.0]
     for r, s in zip(rows, scan.rows):
-        assert r["cv_rmse"] == s.cv_rmse and r["aicc"] == s.aicc and r["r2"] == s.r2
+        assert r["cross-validated RMSE"] == s.cv_rmse and r["AICc"] == s.aicc
+        assert r["R²"] == s.r2 and r["SEE"] == s.rmse and r["PRESS"] == s.press
+        assert r["standard error of the CV RMSE"] == s.cv_se and r["BIC"] == s.bic
+        assert r["p of F against one degree lower"] == s.nested_f_p_value
         assert r["choice"] == s.choice
     assert sum(r["choice"] == "recommended" for r in rows) == 1
 
@@ -58,7 +61,7 @@ def test_checks_and_rows_match_api_and_align_with_input():
         c = api[r["check"]]
         assert r["verdict"] == c.verdict
         if math.isfinite(c.statistic):
-            assert r["statistic"] == pytest.approx(c.statistic, rel=1e-12)
+            assert r["value"] == pytest.approx(c.statistic, rel=1e-12)
     rows = ws.XB_ROWDIAG(Y, X, 2.0)
     assert len(rows) == len(Y)  # header + one row per data row
     assert rows[4][-1] == "dropped: error value" and rows[9][-1] == "dropped: text"
@@ -77,12 +80,17 @@ def test_optimum_and_slope_match_api():
     t = ws.XB_OPTIMUM(Y, X, 2.0)
     items = {r[0]: r for r in t[1:]}
     pt = optimum(fit(y, x, 2)).points[0]
-    assert items["kind"][1] == pt.kind and items["size"][1] == pt.x[0]
-    assert items["size"][2] == pt.se[0]
+    assert t[0] == ["item", "value", "low (95%)", "high (95%)", "standard error",
+                    "how to read it"]
+    assert items["kind of point"][1] == pt.kind and items["size"][1] == pt.x[0]
+    assert items["size"][2:5] == [pt.ci_lower[0], pt.ci_upper[0], pt.se[0]]
+    assert items["fitted cost"][1:4] == [pt.fitted, pt.fitted_ci_lower, pt.fitted_ci_upper]
     s = ws.XB_MARGINAL(Y, X, 2.0, [["size"], [50.0], ["n/a"], [150.0]])
     api = slopes(fit(y, x, 2), [50.0, 150.0])
-    assert s[0] == ["slope", "std_error", "ci_lower", "ci_upper", "range_flag"]
-    assert s[1][0] == api.slope[0, 0] and s[3][1] == api.se[1, 0]
+    assert s[0] == ["size: change per unit", "size: low (95%)", "size: high (95%)",
+                    "size: standard error", "range"]
+    assert s[1][0] == api.slope[0, 0] and s[3][3] == api.se[1, 0]
+    assert s[1][1:3] == [api.ci_lower[0, 0], api.ci_upper[0, 0]]
     assert s[2] == ["", "", "", "", "dropped: text in at_x"]
 
 
@@ -95,7 +103,7 @@ def test_surface_optimum_table_has_eigen_rows():
     t = ws.XB_OPTIMUM(Y, X, "surface")
     labels = [r[0] for r in t]
     assert "eigenvalue 1" in labels and "eigenvector 2 hours" in labels
-    assert dict((r[0], r[1]) for r in t)["kind"] == "minimum"
+    assert dict((r[0], r[1]) for r in t)["kind of point"] == "minimum"
 
 
 @pytest.mark.parametrize("call, message", [

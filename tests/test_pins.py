@@ -97,13 +97,13 @@ def test_verdict_change_is_caught(tmp_path: Path, capsys) -> None:
     size, cost = invented_cost_data(40)
     y = ["cost", *map(float, cost)]
     x = ["size", *map(float, size)]
-    before = {r[0]: r[3] for r in worksheet.XB_CHECKS(y, x, 2.0)}
+    before = {r[0]: r[1] for r in worksheet.XB_CHECKS(y, x, 2.0)}
     y[11] += 400.0
-    after = {r[0]: r[3] for r in worksheet.XB_CHECKS(y, x, 2.0)}
+    after = {r[0]: r[1] for r in worksheet.XB_CHECKS(y, x, 2.0)}
     assert before["outliers"] != after["outliers"]  # the planted outlier changes it
     code, out, _ = run(["verify", edited, "--pins", pins], capsys)
     assert code == 1
-    assert (f"row 6 (outliers), column 4 (verdict): verdict changed: "
+    assert (f"row 6 (outliers), column 2 (verdict): verdict changed: "
             f"\"{before['outliers']}\" -> \"{after['outliers']}\"") in out
 
 

@@ -175,7 +175,7 @@ def _model_book(tmp_path: Path) -> Path:
     y, x = f"{D}!B1:B41", f"{D}!A1:A41"
     formulas = {"Model": {
         "A1": f"=XB_PREDICT({y},{x},2,Model!B21:B23)",
-        "A10": f"=XB_PREDICT({y},{x},2,Model!B32:B34)",
+        "A10": f"=XB_PREDICT({y},{x},2,Model!C32:C34)",
         "A20": ArrayFormula("A20:I24", f"=XB_COEFS({y},{x},2)"),  # one row more than needed
         "A30": f"=XB_STATS({D}!B:B,{D}!A:A,2,\"level=0.9\")",
         "L1": f"=XB_EQUATION({y},{x},2)",
@@ -195,11 +195,11 @@ def test_recalc_fills_the_values_the_functions_give(tmp_path: Path, capsys) -> N
     coefs = worksheet.XB_COEFS(y, x, 2.0)
     stats = worksheet.XB_STATS(y, x, 2.0, "level=0.9")
     p1 = worksheet.XB_PREDICT(y, x, 2.0, [coefs[1][1], coefs[2][1], coefs[3][1]])
-    p2 = worksheet.XB_PREDICT(y, x, 2.0, [stats[2][1], stats[3][1], stats[4][1]])
+    p2 = worksheet.XB_PREDICT(y, x, 2.0, [stats[2][2], stats[3][2], stats[4][2]])
     eq = worksheet.XB_EQUATION(y, x, 2.0)
     assert _region(out, "Model", "A20:I23") == _cells(coefs)
     assert _region(out, "Model", "A24:I24") == [[""] * 9]  # the array range's spare row
-    assert _region(out, "Model", f"A30:B{29 + len(stats)}") == _cells(stats)
+    assert _region(out, "Model", f"A30:C{29 + len(stats)}") == _cells(stats)
     assert _region(out, "Model", "A1:G4") == _cells(p1)
     assert _region(out, "Model", "A10:G13") == _cells(p2)
     assert _region(out, "Model", "L1") == eq
@@ -353,7 +353,7 @@ def test_spill_references(tmp_path: Path) -> None:
 
 
 def test_results_that_would_overlap(tmp_path: Path) -> None:
-    """B5's table (B5:J8) and A6's statistics (A6:B27) cross at B6:B8: the second one
+    """B5's table (B5:J8) and A6's statistics (A6:C27) cross at B6:C8: the second one
     written gets a message, the first keeps its values."""
     from xlbridge.runner.write import plan_results
 

@@ -23,6 +23,8 @@ import xlbridge
 from xlbridge import worksheet as ws
 from xlbridge.cells.cache import FIT_CACHE
 
+from .tablecheck import stats_by_field
+
 NA_TEXT = "#N/A"  # an error cell read with err_to_str
 SPILL = -2146826243  # #SPILL!: newer errors arrive as plain negative ints
 
@@ -63,8 +65,6 @@ def ols(size, price, degree=2):
     return sm.OLS(price, X).fit(), X
 
 
-def table_dict(table):
-    return {r[0]: r[1] for r in table[1:] if r[0] != "note"}
 
 
 def test_coefs_match_statsmodels_on_the_kept_rows():
@@ -75,7 +75,7 @@ def test_coefs_match_statsmodels_on_the_kept_rows():
     assert [r[0] for r in t[1:]] == ["intercept", "size", "size^2"]
     cols = list(zip(*[r[1:7] for r in t[1:]]))
     ci = m.conf_int(alpha=0.10)
-    for got, want in zip(cols, (m.params, m.bse, m.tvalues, m.pvalues, ci[:, 0], ci[:, 1])):
+    for got, want in zip(cols, (m.params, ci[:, 0], ci[:, 1], m.bse, m.tvalues, m.pvalues)):
         assert list(got) == pytest.approx(list(want), rel=1e-8)
     # VIF = 1 / (1 - R2_j) of column j on the others (statsmodels)
     vif = [variance_inflation_factor(X, j) for j in (1, 2)]
@@ -89,7 +89,7 @@ def test_coefs_match_statsmodels_on_the_kept_rows():
 def test_stats_match_statsmodels_and_count_the_dropped_rows():
     size, price = invented()
     y, x, keep = raw_columns(size, price)
-    d = table_dict(ws.XB_STATS(y, x, 2.0))
+    d = stats_by_field(ws.XB_STATS(y, x, 2.0))
     m, X = ols(size[keep], price[keep])
     infl = OLSInfluence(m)
     press = float(np.sum(infl.resid_press**2))
@@ -114,7 +114,7 @@ def test_predict_matches_statsmodels_get_prediction():
     pts = np.array([low, 150.0, 400.0])
     new_x = [["size"], [low], [None], [150.0], [NA_TEXT], [400.0]]
     t = ws.XB_PREDICT(y, x, 2.0, new_x, "level=0.9")
-    assert len(t) == len(new_x) and t[0][-1] == "range_flag"
+    assert len(t) == len(new_x) and t[0][-1] == "range"
     m, X = ols(size[keep], price[keep])
     X0 = np.column_stack([pts**e for e in range(3)])
     frame = m.get_prediction(X0).summary_frame(alpha=0.10)

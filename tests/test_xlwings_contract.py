@@ -23,6 +23,8 @@ import pytest
 import statsmodels.api as sm
 from openpyxl.utils.datetime import to_excel
 
+from .tablecheck import stats_by_field
+
 CHILD = Path(__file__).with_name("xlwings_contract_child.py")
 ROOT = Path(__file__).resolve().parents[1]
 MISSING = -2147352572  # COM's value for an omitted Optional argument
@@ -200,17 +202,17 @@ def test_results_reach_the_cells_as_plain_values(child):
 def test_coefs_through_xlwings_match_statsmodels(child):
     t = child["results"]["coefs"]
     m = ols()
-    assert t[0][:3] == ["term", "estimate", "std_error"]
+    assert t[0][:5] == ["term", "estimate", "low (95%)", "high (95%)", "standard error"]
     assert [r[0] for r in t[1:]] == ["intercept", "size", "size^2"]
     assert [r[1] for r in t[1:]] == pytest.approx(list(m.params), rel=1e-9)
-    assert [r[2] for r in t[1:]] == pytest.approx(list(m.bse), rel=1e-8)
-    assert [r[4] for r in t[1:]] == pytest.approx(list(m.pvalues), rel=1e-7)
+    assert [r[4] for r in t[1:]] == pytest.approx(list(m.bse), rel=1e-8)
+    assert [r[6] for r in t[1:]] == pytest.approx(list(m.pvalues), rel=1e-7)
 
 
 def test_stats_through_xlwings(child):
     t = child["results"]["stats"]
-    assert t[0][0] != "statistic"  # header=no
-    d = {r[0]: r[1] for r in t if r[0] != "note"}
+    assert t[0][0] != "question"  # header=no
+    d = stats_by_field(t)
     m = ols()
     assert d["n_dropped"] == float(len(BAD)) and d["n_used"] == m.nobs
     assert d["r2"] == pytest.approx(m.rsquared, rel=1e-10)

@@ -15,6 +15,7 @@ from pathlib import Path
 from .book.safety import BookError
 
 TEMPLATES = ("equipment_cost.xlsx", "margin_surface.xlsx", "steel_cer.xlsx")
+FIRST_ROW = 2  # the templates' data start in row 2 of sheet Data, below the names
 MARKER = ".xlbridge-demo"
 
 
@@ -114,19 +115,20 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
         if "XB_DEGREESCAN" in captured:
             scan, _ = model_cells.scan_cells(*captured["XB_DEGREESCAN"])
         figures = write_figures(res, out / "figures", scan=scan, prefix=f"{stem}-",
-                                force=True)
+                                force=True, first_row=FIRST_ROW)
         report = out / f"{stem}-report.html"
         write_report(report, res, scan=scan, pngs=figures,
                      source=Source(file=name, y_ref=f"{res.response} (sheet Data)",
-                                   x_ref=", ".join(res.spec.predictors) + " (sheet Data)"))
+                                   x_ref=", ".join(res.spec.predictors) + " (sheet Data)",
+                                   first_row=FIRST_ROW))
         failed = evaluation.failed
         lines.append(f"{name}: {len(evaluation.cells)} model tables evaluated, "
                      f"{len(failed)} errors")
         for x in failed:
             lines.append(f"  {x.label} {x.function}: {x.message}")
         lines.append(f"  model {res.model_text} on {res.stats.n_used} rows "
-                     f"({res.n_dropped} dropped): adj R2 {res.stats.adj_r2:.4f}, "
-                     f"rmse {res.stats.rmse:.4g}")
+                     f"({res.n_dropped} left out): adjusted R² {res.stats.adj_r2:.4f}, "
+                     f"typical miss (SEE) {res.stats.rmse:.4g}")
         if scan is not None and scan.chosen is not None:
             lines.append(f"  degree scan recommends degree {scan.chosen}")
         lines.append(f"  {res.equation()}")

@@ -1,5 +1,6 @@
 """Figures of a fit (matplotlib, no GUI backend): curve with bands, residuals, normal
-quantiles, leverage and influence, degree scan, and the contour of a fitted surface.
+quantiles, the rows that pull the fit hardest (influence), degree scan, and the contour of
+a fitted surface.
 
 Every function returns a ``matplotlib.figure.Figure`` built without pyplot, so nothing
 depends on a display; ``save`` writes PNG or SVG.
@@ -11,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .engine import FitResult, ModelError, row_diagnostics
+from .engine import FitResult, ModelError, cooks_cutoff, row_diagnostics
 from .engine.scan import DegreeScan
 
 SIZE = (7.0, 4.6)  # inches; at 110 dpi a PNG is 770 x 506 pixels
@@ -90,34 +91,69 @@ def normal_quantiles(res: FitResult):
     return fig
 
 
-def influence(res: FitResult):
-    """Leverage against externally studentized residuals, with Cook's distance contours."""
+INFLUENCE_TOP = 15  # rows shown in the influence figure, largest Cook's distance first
+CALM = "#7f8c8d"  # bars under the threshold
+
+
+def row_label(row: int, first_row: int | None = None) -> str:
+    """``row N`` for the N-th data row (1-based, as the checks name rows), with the sheet row
+    when the row of the first data cell is known."""
+    return f"row {row}" if first_row is None else f"row {row} (sheet row {row + first_row - 1})"
+
+
+def influence(res: FitResult, first_row: int | None = None, top: int = INFLUENCE_TOP):
+    """The rows that pull the fit hardest: Cook's distance of the ``top`` largest rows as
+    bars, largest first, against the threshold the row flags use (``cooks_cutoff``); each
+    bar names its data row (and sheet row, given ``first_row``: the sheet row of data row
+    1), and a column beside the bars gives its leverage and studentized residual. The scale
+    turns logarithmic when the distances shown span more than a factor of 30."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+    from matplotlib.transforms import blended_transform_factory
+
     d = row_diagnostics(res)
-    ok = np.isfinite(d.studentized)
-    h, t = d.leverage[ok], d.studentized[ok]
-    p = res.stats.n_params
-    fig, ax = _figure()
-    ax.scatter(h, t, s=14, color=DATA, zorder=3)
-    hmax = min(0.999, float(max(np.max(h) * 1.15, 2.5 * p / res.stats.n_used)))
-    grid = np.linspace(1e-4, hmax, 200)
-    for dval, style in ((0.5, "--"), (1.0, "-")):
-        # Cook's D = r^2 h / (p (1 - h)) with r the internally studentized residual
-        r = np.sqrt(dval * p * (1 - grid) / grid)
-        ax.plot(grid, r, color=CURVE, ls=style, lw=1, label=f"Cook's D = {dval:g}")
-        ax.plot(grid, -r, color=CURVE, ls=style, lw=1)
-    ymax = float(max(3.5, np.max(np.abs(t)) * 1.15))
-    ax.set_ylim(-ymax, ymax)
-    ax.set_xlim(0, hmax)
-    ax.axvline(2 * p / res.stats.n_used, color="grey", ls=":", lw=1, label="leverage 2p/n")
-    rows = np.flatnonzero(ok) + 1  # input row numbers
-    for i in np.argsort(-np.abs(t))[:3]:
-        ax.annotate(f"row {rows[i]}", (h[i], t[i]), fontsize=7, xytext=(4, 4),
-                    textcoords="offset points")
-    ax.set_xlabel("leverage")
-    ax.set_ylabel("studentized residual")
-    ax.set_title("Influence: leverage against studentized residuals")
-    ax.legend(loc="lower right", fontsize=8)
-    ax.grid(alpha=0.3)
+    ok = np.flatnonzero(np.isfinite(d.cooks_d))
+    order = ok[np.argsort(-d.cooks_d[ok], kind="stable")][:top]
+    cut = cooks_cutoff(res.stats.n_used)
+    cooks = d.cooks_d[order]
+    over = cooks > cut
+    fig, ax = _figure((SIZE[0], max(SIZE[1], 1.6 + 0.26 * len(order))))
+    ypos = np.arange(len(order))[::-1]  # the largest at the top
+    hi = float(max(np.max(cooks, initial=0.0), cut))
+    small = float(min(np.min(cooks[cooks > 0], initial=hi), cut))
+    log = hi / small > 30
+    left = small / 2 if log else 0.0
+    ax.barh(ypos, cooks - left, left=left, color=np.where(over, CURVE, CALM), height=0.7,
+            zorder=3)
+    if log:
+        ax.set_xscale("log")
+        ax.set_xlim(left, hi * 4)
+    else:
+        ax.set_xlim(0, hi * 1.2)
+    ax.set_yticks(ypos, [row_label(i + 1, first_row) for i in order], fontsize=8)
+    ax.set_ylim(-0.6, len(order) - 0.4)
+    ax.axvline(cut, color="k", ls="--", lw=1, zorder=4)
+    beside = blended_transform_factory(ax.transAxes, ax.transData)
+    ax.text(1.02, -0.7, "leverage,\nstudentized\nresidual", transform=beside, fontsize=7,
+            va="top", color="#444")
+    for y, i, c in zip(ypos, order, cooks):
+        ax.text(c * 1.08 if log else c + hi * 0.01, y, f"{c:.3g}", va="center", fontsize=7,
+                zorder=5)
+        ax.text(1.02, y, f"{d.leverage[i]:.2f}, {d.studentized[i]:+.2f}", transform=beside,
+                va="center", fontsize=7)
+    n_over = int(np.sum(d.cooks_d[ok] > cut))
+    ax.legend(handles=[Line2D([], [], color="k", ls="--", lw=1,
+                              label=f"4/n = {cut:.3g}, the threshold of the row flags"),
+                       Patch(color=CURVE, label=f"over it: influential ({n_over} "
+                                                 f"row{'' if n_over == 1 else 's'} in all)"),
+                       Patch(color=CALM, label="under it")],
+              loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=3, fontsize=8)
+    shown = (f"the {len(order)} largest of {len(ok)} rows" if len(ok) > len(order)
+             else f"all {len(ok)} rows")
+    ax.set_xlabel("Cook's distance: how far the fitted values move without the row"
+                  + (" (log scale)" if log else ""))
+    ax.set_title(f"Rows that pull the fit hardest ({shown})")
+    ax.grid(axis="x", alpha=0.3, zorder=0)
     return fig
 
 
@@ -129,7 +165,7 @@ def degree_scan(scan: DegreeScan):
     ax.errorbar(d, [r.cv_rmse for r in rows], yerr=[r.cv_se for r in rows], color=DATA,
                 marker="o", capsize=4, label="cross-validated RMSE (one SE bars)")
     ax.plot(d, [r.rmse for r in rows], color="grey", marker=".", ls="--",
-            label="residual SD (in-sample)")
+            label="SEE (in-sample)")
     if scan.chosen is not None:
         sel = next(r for r in rows if r.degree == scan.chosen)
         ax.scatter([sel.degree], [sel.cv_rmse], s=160, facecolors="none", edgecolors=CURVE,
@@ -144,7 +180,8 @@ def degree_scan(scan: DegreeScan):
     ax2.set_ylabel("adjusted R²", color="#7d3c98")
     h1, l1 = ax.get_legend_handles_labels()
     h2, l2 = ax2.get_legend_handles_labels()
-    ax.legend(h1 + h2, l1 + l2, loc="center right", fontsize=8)
+    ax.legend(h1 + h2, l1 + l2, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2,
+              fontsize=8)
     ax.grid(alpha=0.3)
     return fig
 
@@ -204,8 +241,10 @@ def applicable(res: FitResult, scan: DegreeScan | None = None) -> list[str]:
     return [k for k in kinds if k != "degrees" or scan is not None]
 
 
-def figure(res: FitResult, kind: str, scan: DegreeScan | None = None):
-    """One figure of the fit by kind."""
+def figure(res: FitResult, kind: str, scan: DegreeScan | None = None,
+           first_row: int | None = None):
+    """One figure of the fit by kind (``first_row``: the sheet row of data row 1, for the
+    influence figure's labels)."""
     if kind == "degrees":
         if scan is None:
             raise ModelError("the degrees figure needs a degree scan")
@@ -222,6 +261,8 @@ def figure(res: FitResult, kind: str, scan: DegreeScan | None = None):
               "influence": influence}
     if kind not in makers:
         raise ModelError(f"figure kind must be one of {', '.join(KINDS)}; got {kind!r}")
+    if kind == "influence":
+        return influence(res, first_row)
     return makers[kind](res)
 
 
@@ -239,7 +280,7 @@ def png_bytes(fig) -> bytes:
 
 def write_figures(res: FitResult, out: str | Path, kinds=None, *, svg: bool = False,
                   force: bool = False, scan: DegreeScan | None = None,
-                  prefix: str = "") -> dict[str, bytes]:
+                  prefix: str = "", first_row: int | None = None) -> dict[str, bytes]:
     """Write the figures of one fit into folder ``out`` as ``<prefix><kind>.png`` (and .svg),
     each atomically, an existing file only with ``force``; default: every kind that applies.
     Returns the PNG bytes by kind (the report embeds them without drawing again)."""
@@ -249,7 +290,7 @@ def write_figures(res: FitResult, out: str | Path, kinds=None, *, svg: bool = Fa
     out.mkdir(parents=True, exist_ok=True)
     pngs = {}
     for kind in list(kinds) if kinds else applicable(res, scan):
-        fig = figure(res, kind, scan)
+        fig = figure(res, kind, scan, first_row)
         pngs[kind] = data = png_bytes(fig)
         write_atomically(out / f"{prefix}{kind}.png", lambda tmp, d=data: tmp.write_bytes(d),
                          force=force)

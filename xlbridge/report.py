@@ -13,8 +13,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__, plots
-from .engine import FitResult, ModelError, checks, optimum
+from . import __version__, cells, plots
+from .cells.tables import split_notes
+from .engine import FitResult, ModelError
 from .engine.scan import DegreeScan
 
 CAUTIONS = (
@@ -37,7 +38,7 @@ h2 { font-size: 1.2rem; color: #1f4e79; margin-top: 2rem; border-bottom: 1px sol
 table { border-collapse: collapse; margin: .5rem 0; font-size: .85rem; }
 th, td { border: 1px solid #ccd; padding: .2rem .5rem; text-align: right; }
 td { white-space: nowrap; } td.t { white-space: normal; }
-th { background: #eef2f7; }
+th { background: #eef2f7; } th.q { background: #dfe7f1; color: #1f4e79; }
 td.t, th.t { text-align: left; }
 code.eq { display: block; white-space: pre-wrap; word-break: break-all; background: #f6f6f6;
           padding: .6rem; font-size: .85rem; }
@@ -60,6 +61,7 @@ class Source:
     y_ref: str = ""
     x_ref: str = ""
     options: str = ""
+    first_row: int | None = None  # sheet row of data row 1, for the influence figure
 
 
 def data_hash(res: FitResult) -> str:
@@ -100,13 +102,42 @@ def _table(head: list[str], rows: list[list], text=(0,), classes=None) -> str:
     return "".join(out)
 
 
+def _notes(notes: list[str]) -> str:
+    return ("<ul class='small'>" + "".join(f"<li>{html.escape(n)}</li>" for n in notes)
+            + "</ul>") if notes else ""
+
+
+def _cells_table(table: list[list], text=(0,), classes=None) -> str:
+    """A cells table (header row first) as HTML, its note rows as a list below it."""
+    body, notes = split_notes(table)
+    return _table(body[0], body[1:], text, classes) + _notes(notes)
+
+
+def _questions_table(table: list[list]) -> str:
+    """The statistics block (question, measure, value): one heading row per question."""
+    body, notes = split_notes(table)
+    out, current = ["<table>"], None
+    for question, measure, value in body[1:]:
+        if question != current:
+            out.append(f"<tr><th class='t q' colspan='2'>{html.escape(question)}</th></tr>")
+            current = question
+        out.append(f"<tr><td class='t'>{html.escape(measure)}</td><td>{_num(value)}</td></tr>")
+    out.append("</table>")
+    return "".join(out) + _notes(notes)
+
+
+#: The degree-scan columns the report shows (the worksheet table has them all).
+REPORT_DEGREE_FIELDS = ("degree", "choice", "adj_r2", "rmse", "cv_rmse", "pred_r2", "aicc",
+                        "bic", "top_term_p_value", "note")
+
 CAPTIONS = {
     "curve": "Fitted curve with confidence band of the mean and prediction band of a new "
              "observation",
     "contour": "Contours of the fitted surface",
     "residuals": "Residuals against fitted values",
     "quantiles": "Normal quantile plot",
-    "influence": "Leverage against studentized residuals",
+    "influence": "Rows that pull the fit hardest: Cook's distance, largest first, against "
+                 "the threshold of the row flags",
     "degrees": "Degree scan",
 }
 
@@ -155,35 +186,26 @@ def build_report(res: FitResult, *, scan: DegreeScan | None = None,
                  "in a centered, scaled basis.</p>")
 
     parts.append("<h2 id='coefficients'>Coefficients</h2>")
-    head = ["term", "estimate", "std_error", "t_ratio", "p_value",
-            f"ci_lower ({res.level:.0%})", f"ci_upper ({res.level:.0%})", "vif", "vif_centered"]
-    parts.append(_table(head, [[c.term, c.estimate, c.std_error, c.t_ratio, c.p_value,
-                                c.ci_lower, c.ci_upper, c.vif, c.vif_centered]
-                               for c in res.coefficients]))
+    parts.append(_cells_table(cells.coef_table(res)))
 
-    parts.append("<h2 id='statistics'>Fit statistics</h2>")
-    parts.append(_table(["statistic", "value"],
-                        [[k, v] for k, v in s.__dict__.items()]))
-    if res.notes:
-        parts.append("<ul class='small'>" + "".join(f"<li>{html.escape(n)}</li>"
-                                                     for n in res.notes) + "</ul>")
+    parts.append("<h2 id='statistics'>Statistics, by the question they answer</h2>")
+    parts.append(_questions_table(cells.stats_table(res)))
 
     parts.append("<h2 id='checks'>Checks of the assumptions</h2>")
-    cks = checks(res)
-    parts.append(_table(["check", "statistic", "p_value", "verdict", "note"],
-                        [[c.check, c.statistic, c.p_value, c.verdict, c.note] for c in cks],
-                        text=(0, 3, 4),
-                        classes=[c.verdict if c.verdict in ("ok", "watch", "problem") else ""
-                                 for c in cks]))
+    cks = cells.checks_table(res)
+    verdict = cells.CHECK_COLUMNS.index("verdict")
+    parts.append(_cells_table(cks, text=(0, verdict, len(cks[0]) - 1),
+                              classes=[r[verdict] if r[verdict] in ("ok", "watch", "problem")
+                                       else "" for r in cks[1:]]))
 
     parts.append("<h2 id='degrees'>Degree scan</h2>")
     if scan is not None:
-        parts.append(_table(["degree", "adj_r2", "rmse", "aicc", "bic", "pred_r2", "cv_rmse",
-                             "top_term_p_value", "choice"],
-                            [[str(r.degree), r.adj_r2, r.rmse, r.aicc, r.bic, r.pred_r2,
-                              r.cv_rmse, r.top_term_p_value, r.choice] for r in scan.rows],
-                            text=(0, 8)))
-        parts.append(f"<p class='small'>Rule: {html.escape(scan.rule)}.</p>")
+        full, notes = split_notes(cells.degrees_table(scan))
+        at = [cells.DEGREE_COLUMNS.index(f) for f in REPORT_DEGREE_FIELDS]
+        rows = [[r[i] for i in at] for r in full]
+        for r in rows[1:]:
+            r[0] = f"{r[0]:g}"  # a degree, not a measurement
+        parts.append(_table(rows[0], rows[1:], text=(0, 1, len(at) - 1)) + _notes(notes))
     else:
         parts.append("<p class='small'>Not run for this model (the scan applies to one "
                      "predictor).</p>")
@@ -192,26 +214,15 @@ def build_report(res: FitResult, *, scan: DegreeScan | None = None,
     pngs = dict(pngs or {})
     for kind in plots.applicable(res, scan):
         if kind not in pngs:
-            pngs[kind] = plots.png_bytes(plots.figure(res, kind, scan))
+            pngs[kind] = plots.png_bytes(plots.figure(res, kind, scan, src.first_row))
         parts.append(_figure(pngs[kind], CAPTIONS[kind]))
     parts.append("</div>")
 
     if res.spec.k >= 2 or (res.spec.degree or 0) >= 2:
         try:
-            opt = optimum(res)
+            table = cells.optimum_table(res)
             parts.append("<h2 id='optimum'>Stationary point</h2>")
-            rows = []
-            for pt in opt.points:
-                for nm, v, se, lo, hi in zip(opt.predictors, pt.x, pt.se, pt.ci_lower,
-                                             pt.ci_upper):
-                    rows.append([f"{pt.kind}: {nm}", v, se, lo, hi])
-                rows.append([f"{pt.kind}: fitted {res.response}", pt.fitted, math.nan,
-                             pt.fitted_ci_lower, pt.fitted_ci_upper])
-                rows.append([f"{pt.kind}: inside the data", pt.inside, math.nan, math.nan,
-                             math.nan])
-            parts.append(_table(["item", "value", "std_error", "ci_lower", "ci_upper"], rows))
-            if opt.note:
-                parts.append(f"<p class='small'>{html.escape(opt.note)}</p>")
+            parts.append(_cells_table(table, text=(0, len(table[0]) - 1)))
         except ModelError as exc:
             parts.append(f"<p class='small'>{html.escape(str(exc))}</p>")
 
@@ -282,8 +293,8 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
 
     parts.append("<h2 id='coefficients'>Coefficients</h2>")
     parts.append(_rows_html(cells.coef_table(res, opts.replace(header=True))))
-    parts.append("<h2 id='statistics'>Statistics</h2>")
-    parts.append(_rows_html(cells.stats_table(res, opts.replace(header=True))))
+    parts.append("<h2 id='statistics'>Statistics, by the question they answer</h2>")
+    parts.append(_questions_table(cells.stats_table(res, opts.replace(header=True))))
 
     parts.append("<h2 id='plots'>Plots</h2><div class='grid'>")
     pngs = dict(pngs or cerplots.cer_pngs(res))

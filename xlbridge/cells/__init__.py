@@ -27,9 +27,12 @@ from .errors import (
 )
 from .options import Options, OptionsError, option_keys, options_help, parse_options
 from .prepare import FitInput, fit_cells, fit_prepared, prepare_fit
+from .statrows import STAT_ROWS, interval_captions, stat_caption
 from .tables import (
     COEF_COLUMNS,
     PREDICT_COLUMNS,
+    STATS_NOTE,
+    coef_captions,
     coef_table,
     coefs_cells,
     equation_cells,
@@ -37,6 +40,7 @@ from .tables import (
     info_cells,
     info_table,
     new_points,
+    predict_captions,
     predict_cells,
     predict_table,
     stats_cells,
@@ -106,6 +110,8 @@ __all__ = [
     "prepare_fit", "rows_cells", "rows_table", "run_guarded", "scan_cells", "slope_cells",
     "slope_table", "stats_cells", "stats_table",
 ]
+__all__ += ["STATS_NOTE", "STAT_ROWS", "coef_captions", "interval_captions", "predict_captions",
+            "stat_caption"]
 __all__ += ["CANDIDATE_COLUMNS", "baseyear_cells", "candidates_cells", "candidates_table",
             "card_cells", "learning_cells", "learning_table", "plevels_cells", "plevels_table"]
 

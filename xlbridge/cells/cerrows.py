@@ -10,13 +10,14 @@ from typing import Any
 from ..engine import CerResult, FitResult
 from ..engine.cerresult import INTERVAL_SOURCES
 from ..engine.unitstats import UnitStats, fit_unit_stats, relevant_range
+from .statrows import interval_captions
 
 __all__ = ["CER_COEF_COLUMNS", "base_year_text", "cer_coef_rows", "cer_predict_rows",
            "cer_stats_rows", "fit_unit_rows", "model_label", "model_title", "range_rows",
            "rows_used", "unit_rows", "with_base_year"]
 
-CER_COEF_COLUMNS = ("term", "role", "estimate", "std_error", "t_ratio", "p_value", "ci_lower",
-                    "ci_upper")
+CER_COEF_COLUMNS = ("term", "role", "estimate", "ci_lower", "ci_upper", "std_error", "t_ratio",
+                    "p_value")  # fields in table order; captions as the polynomial table's
 
 Rows = list[list[Any]]
 
@@ -48,10 +49,12 @@ def with_base_year(equation: str, base_year: int | None) -> str:
 
 def cer_coef_rows(res: CerResult, header: bool) -> tuple[Rows, list[str]]:
     """One row per coefficient, ``a`` first, then each driver's exponent or slope."""
-    rows: Rows = [list(CER_COEF_COLUMNS)] if header else []
+    head = ["term", "role", "estimate", *interval_captions(res.level), "standard error", "t",
+            "p"]
+    rows: Rows = [head] if header else []
     for c in res.coefficients:
-        rows.append([c.name, c.role, c.estimate, c.std_error, c.t_ratio, c.p_value,
-                     c.ci_lower, c.ci_upper])
+        rows.append([c.name, c.role, c.estimate, c.ci_lower, c.ci_upper, c.std_error,
+                     c.t_ratio, c.p_value])
     notes = [f"standard errors and intervals from {INTERVAL_SOURCES[res.method]}"]
     if res.method == "log" and res.correction != 1.0:
         notes.append(f"a is exp of the log-space constant; the equation in units multiplies "

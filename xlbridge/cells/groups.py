@@ -17,7 +17,7 @@ from .values import grid_of, group_key
 if TYPE_CHECKING:
     from ..engine import GroupsResult
 
-__all__ = ["groups_fit", "groups_table", "groups_cells"]
+__all__ = ["GROUP_CAPTIONS", "groups_fit", "groups_table", "groups_cells"]
 
 
 def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
@@ -37,8 +37,7 @@ def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
     if g.cols != 1:
         raise CellError(f"group must be one column; got {g.cols} columns", CellErrorKind.SHAPE)
     keys = list(g.flat)
-    if inp.response is not None or inp.names is not None:
-        keys = keys[1:]  # the header row of y and x
+    keys = keys[inp.header_rows:]  # the header row of y and x
     n = len(inp.y)
     if len(keys) < n or any(k is not None for k in keys[n:]):
         raise CellError(f"group has {len(keys)} rows but y has {n}; select ranges of the same "
@@ -60,16 +59,28 @@ def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
     return res, inp.options, notes
 
 
+#: Captions of the groups table's fixed columns (docs/output-style.md); each term's two
+#: columns read "<term>" and "<term>: standard error".
+GROUP_CAPTIONS = {"group": "group", "n_used": "rows used", "r2": "R²", "adj_r2": "adjusted R²",
+                  "rmse": "SEE", "flag": "flag"}
+
+
 def groups_table(res: GroupsResult, options: Options | None = None,
                  notes: Sequence[str] = ()) -> Table:
-    """One row per group: key, n_used, estimate and std error per term, r2, adj_r2, rmse,
-    flag; the blank group shows as "(blank)"."""
+    """One row per group: key, rows used, R², adjusted R², SEE, estimate and standard error
+    per term, flag; the blank group shows as "(blank)"."""
     opts = options or Options()
-    rows = res.table(header=opts.header)
-    start = 1 if opts.header else 0
-    for r in rows[start:]:
-        if r[0] is None:
-            r[0] = "(blank)"
+    fields = list(res.columns)  # the engine's column names (it refuses duplicates)
+    order = ["group", "n_used", "r2", "adj_r2", "rmse"]
+    order += [f for f in fields if f not in order and f != "flag"] + ["flag"]
+    at = [fields.index(f) for f in order]
+    se = {f"{t}_se": f"{t}: standard error" for t in res.terms}
+    rows: list[list[Any]] = [[GROUP_CAPTIONS.get(f) or se.get(f) or f for f in order]
+                             ] if opts.header else []
+    for r in res.table(header=False):
+        rows.append([r[i] for i in at])
+        if rows[-1][0] is None:
+            rows[-1][0] = "(blank)"
     note_rows(rows, notes)
     return finish_table(rows)
 

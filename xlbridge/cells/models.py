@@ -27,20 +27,33 @@ from .prepare import FitInput, prepare_fit
 # the tables here are of polynomial and surface fits: a CER form gets a message saying so
 from .prepare import polynomial_cells as fit_cells
 from .prepare import polynomial_prepared as fit_prepared
+from .statrows import interval_captions
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import drop_reason, single_value
 
-__all__ = ["DEGREE_COLUMNS", "CHECK_COLUMNS", "ROW_COLUMNS", "OPTIMUM_COLUMNS", "FitFigure",
+__all__ = ["DEGREE_COLUMNS", "DEGREE_CAPTIONS", "CHECK_COLUMNS", "CHECK_CAPTIONS", "ROW_COLUMNS",
+           "ROW_CAPTIONS", "OPTIMUM_COLUMNS", "optimum_captions", "slope_captions", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
            "scan_cells", "PlotInput", "plot_input", "plot_figure"]
 
-DEGREE_COLUMNS = ("degree", "r2", "adj_r2", "rmse", "aic", "aicc", "bic", "press", "pred_r2",
-                  "cv_rmse", "cv_se", "top_term_p_value", "nested_f_p_value", "choice", "note")
-CHECK_COLUMNS = ("check", "statistic", "p_value", "verdict", "note")
+# Fields behind each column, in table order, and the captions shown (docs/output-style.md):
+# the degree and its choice, then in-sample fit, out-of-sample error, information criteria,
+# whether the top term earns its place; checks lead with the verdict.
+DEGREE_COLUMNS = ("degree", "choice", "r2", "adj_r2", "rmse", "cv_rmse", "cv_se", "press",
+                  "pred_r2", "aic", "aicc", "bic", "top_term_p_value", "nested_f_p_value",
+                  "note")
+DEGREE_CAPTIONS = ("degree", "choice", "R²", "adjusted R²", "SEE", "cross-validated RMSE",
+                   "standard error of the CV RMSE", "PRESS", "predicted R²", "AIC", "AICc",
+                   "BIC", "p of the highest-order term", "p of F against one degree lower",
+                   "note")
+CHECK_COLUMNS = ("check", "verdict", "statistic", "p_value", "note")
+CHECK_CAPTIONS = ("check", "verdict", "value", "p", "how to read it")
 ROW_COLUMNS = ("fitted", "residual", "std_residual", "studentized", "leverage", "cooks_d",
                "flag")
-OPTIMUM_COLUMNS = ("item", "value", "std_error", "ci_lower", "ci_upper", "note")
+ROW_CAPTIONS = ("fitted", "residual", "standardized residual", "studentized residual",
+                "leverage", "Cook's distance", "flag")
+OPTIMUM_COLUMNS = ("item", "value", "ci_lower", "ci_upper", "std_error", "note")
 
 
 def _max_degree(value: Any) -> Any:
@@ -76,7 +89,7 @@ def scan_cells(y: Any, x: Any, max_degree: Any, options: Any = None, *,
 def degrees_table(scan: DegreeScan, options: Options | None = None) -> Table:
     """One row per degree; ``choice`` marks the recommended one; the rule in a note row."""
     opts = options or Options()
-    rows: list[list[Any]] = [list(DEGREE_COLUMNS)] if opts.header else []
+    rows: list[list[Any]] = [list(DEGREE_CAPTIONS)] if opts.header else []
     for r in scan.rows:
         rows.append([getattr(r, c) for c in DEGREE_COLUMNS])
     note_rows(rows, [f"recommended: {scan.rule}", *scan.notes])
@@ -91,9 +104,9 @@ def degrees_cells(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table
 def checks_table(result: FitResult, options: Options | None = None) -> Table:
     """One row per assumption check with a plain-word verdict."""
     opts = options or Options()
-    rows: list[list[Any]] = [list(CHECK_COLUMNS)] if opts.header else []
+    rows: list[list[Any]] = [list(CHECK_CAPTIONS)] if opts.header else []
     for c in checks(result):
-        rows.append([c.check, c.statistic, c.p_value, c.verdict, c.note])
+        rows.append([getattr(c, f) for f in CHECK_COLUMNS])
     return finish_table(rows)
 
 
@@ -106,10 +119,10 @@ def rows_table(result: FitResult, options: Options | None = None) -> Table:
     """One row per input data row (aligned with y and x, header row skipped)."""
     opts = options or Options()
     d = row_diagnostics(result)
-    rows: list[list[Any]] = [list(ROW_COLUMNS)] if opts.header else []
+    rows: list[list[Any]] = [list(ROW_CAPTIONS)] if opts.header else []
+    cols = [getattr(d, f) for f in ROW_COLUMNS]
     for i in range(len(d.flag)):
-        rows.append([d.fitted[i], d.residual[i], d.std_residual[i], d.studentized[i],
-                     d.leverage[i], d.cooks_d[i], d.flag[i]])
+        rows.append([c[i] for c in cols])
     return finish_table(rows)
 
 
@@ -125,21 +138,26 @@ def rows_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     return table
 
 
+def optimum_captions(level: float) -> list[str]:
+    """Header of the optimum table: value, interval, standard error (as the coefficients)."""
+    return ["item", "value", *interval_captions(level), "standard error", "how to read it"]
+
+
 def optimum_table(result: FitResult, options: Options | None = None) -> Table:
     """Stationary point(s) with delta-method intervals; for surfaces the eigenvalues and
     eigenvectors of the quadratic part (canonical analysis)."""
     opts = options or Options()
     opt = optimum(result)
-    rows: list[list[Any]] = [list(OPTIMUM_COLUMNS)] if opts.header else []
+    rows: list[list[Any]] = [optimum_captions(result.level)] if opts.header else []
     many = len(opt.points) > 1
     for n, pt in enumerate(opt.points, 1):
         tag = f"point {n} " if many else ""
         where = "inside the data" if pt.inside else "outside the data: extrapolation"
-        rows.append([f"{tag}kind", pt.kind, "", "", "", where])
+        rows.append([f"{tag}kind of point", pt.kind, "", "", "", where])
         for name, v, se, lo, hi in zip(opt.predictors, pt.x, pt.se, pt.ci_lower, pt.ci_upper):
-            rows.append([f"{tag}{name}", v, se, lo, hi, "stationary value (delta method)"])
-        rows.append([f"{tag}fitted", pt.fitted, "", pt.fitted_ci_lower, pt.fitted_ci_upper,
-                     f"fitted {result.response} there (confidence interval of the mean)"])
+            rows.append([f"{tag}{name}", v, lo, hi, se, "stationary value (delta method)"])
+        rows.append([f"{tag}fitted {result.response}", pt.fitted, pt.fitted_ci_lower,
+                     pt.fitted_ci_upper, "", "there (confidence interval of the mean)"])
     for i, (lam, vec) in enumerate(zip(opt.eigenvalues, opt.eigenvectors), 1):
         rows.append([f"eigenvalue {i}", lam, "", "", "", "of the quadratic part, raw units"])
         for name, comp in zip(opt.predictors, vec):
@@ -156,20 +174,21 @@ def optimum_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
         raise CellError.from_model(exc) from None
 
 
-def _slope_columns(predictors: tuple[str, ...]) -> list[str]:
-    if len(predictors) == 1:
-        return ["slope", "std_error", "ci_lower", "ci_upper", "range_flag"]
+def slope_captions(predictors: tuple[str, ...], level: float) -> list[str]:
+    """Header of the slopes table: per predictor the change of the fit per unit of it, its
+    interval and standard error; then the range."""
     cols = []
     for p in predictors:
-        cols += [f"slope_{p}", f"std_error_{p}", f"ci_lower_{p}", f"ci_upper_{p}"]
-    return cols + ["range_flag"]
+        lo, hi = interval_captions(level)
+        cols += [f"{p}: change per unit", f"{p}: {lo}", f"{p}: {hi}", f"{p}: standard error"]
+    return cols + ["range"]
 
 
 def slope_table(result: FitResult, at_x: Any, options: Options | None = None) -> Table:
     """dy/dx_j at each row of ``at_x`` with delta-method SE and interval, aligned rows."""
     opts = options or Options()
     pts, good, codes = new_points(result, at_x, opts, what="at_x")
-    cols = _slope_columns(result.spec.predictors)
+    cols = slope_captions(result.spec.predictors, opts.level)
     rows: list[list[Any]] = [cols] if opts.header else []
     sl = slopes(result, pts, opts.level) if good.any() else None
 
@@ -177,7 +196,7 @@ def slope_table(result: FitResult, at_x: Any, options: Options | None = None) ->
         assert sl is not None
         out: list[Any] = []
         for p in range(result.spec.k):
-            out += [sl.slope[j, p], sl.se[j, p], sl.ci_lower[j, p], sl.ci_upper[j, p]]
+            out += [sl.slope[j, p], sl.ci_lower[j, p], sl.ci_upper[j, p], sl.se[j, p]]
         return out + ["extrapolated" if bool(sl.extrapolated[j]) else "inside"]
 
     rows += aligned_rows(good, codes, len(cols), "at_x", row_of)

@@ -61,6 +61,7 @@ class FitInput:
     def n_dropped(self) -> int:
         return sum(n for _, n in self.drops)
 
+
     def key(self) -> str:
         """Content hash of everything that changes the fit."""
         return content_key("fit", self.y, self.x, self.names, self.response, self.model,

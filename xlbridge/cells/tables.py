@@ -27,18 +27,23 @@ from .cerrows import (
 from .errors import Cell, CellError, CellErrorKind, Table, clip_text
 from .options import Options
 from .prepare import fit_cells
+from .statrows import arrange, interval_captions
 from .values import OK, CleanCells, clean_cells, drop_reason, from_array, grid_of
 
-__all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "aligned_rows",
-           "coef_table", "coefs_cells", "equation_cells", "equation_text", "finish_table",
-           "info_cells", "info_table", "new_points", "note_rows", "predict_cells",
-           "predict_table", "split_notes", "stats_cells", "stats_table", "wrap_text"]
+__all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "NOTE_MARK",
+           "STATS_NOTE", "aligned_rows", "coef_captions", "coef_table", "coefs_cells",
+           "equation_cells", "equation_text", "finish_table", "info_cells", "info_table",
+           "interval_captions", "new_points", "note_rows", "predict_captions",
+           "predict_cells", "predict_table", "split_notes", "stats_cells", "stats_table",
+           "wrap_text"]
 
 MAX_TEXT = 255  # longest string in a multi-cell result
 MAX_CELL_TEXT = 32767  # longest text one spreadsheet cell holds
 
-COEF_COLUMNS = ("term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower",
-                "ci_upper", "vif", "vif_centered")
+# Captions follow docs/output-style.md. The *_COLUMNS tuples are the fields behind each
+# column in table order (and the JSON keys); the captions are for people.
+COEF_COLUMNS = ("term", "estimate", "ci_lower", "ci_upper", "std_error", "t_ratio", "p_value",
+                "vif", "vif_centered")
 PREDICT_COLUMNS = ("fitted", "ci_lower", "ci_upper", "pi_lower", "pi_upper", "leverage",
                    "range_flag")
 
@@ -96,7 +101,7 @@ def wrap_text(text: str, width: int) -> list[str]:
 
 
 NOTE_MARK = "note: "  # begins the first line of each note row below a table
-STATS_NOTE = "note"  # the statistic column of the statistics table's note rows
+STATS_NOTE = "notes"  # the question column of the statistics table's note rows
 
 
 def note_rows(rows: list[list[Any]], notes: Iterable[str]) -> None:
@@ -114,8 +119,8 @@ def split_notes(table: Table) -> tuple[Table, list[str]]:
     >>> note_rows(rows, ["two rows left out"])
     >>> split_notes(finish_table(rows))
     ([['a', 1.0]], ['two rows left out'])
-    >>> split_notes([["statistic", "value"], ["r2", 0.5], ["note", "log scale"]])
-    ([['statistic', 'value'], ['r2', 0.5]], ['log scale'])
+    >>> split_notes([["how good is the fit", "R²", 0.5], ["notes", "", "log scale"]])
+    ([['how good is the fit', 'R²', 0.5]], ['log scale'])
     """
     body: Table = []
     notes: list[str] = []
@@ -123,7 +128,7 @@ def split_notes(table: Table) -> tuple[Table, list[str]]:
     for row in table:
         first = row[0] if row else ""
         rest_blank = all(v == "" for v in row[1:])
-        if first == STATS_NOTE and len(row) > 1:
+        if first == STATS_NOTE and len(row) == 3 and row[1] == "":
             notes.append(str(next(v for v in reversed(row) if v != "")))
             in_note = False
         elif isinstance(first, str) and first.startswith(NOTE_MARK) and rest_blank:
@@ -143,8 +148,21 @@ def _blank_note(blanks: dict[str, str]) -> str | None:
     return "blank cells: " + ", ".join(f"{k} {v}" for k, v in blanks.items())
 
 
+def coef_captions(level: float) -> list[str]:
+    """Header of the coefficient table: the estimate with its interval, then the evidence
+    (standard error, t, p), then the collinearity measures."""
+    return ["term", "estimate", *interval_captions(level), "standard error", "t", "p", "VIF",
+            "VIF, centered"]
+
+
+def predict_captions(level: float) -> list[str]:
+    """Header of the predictions table."""
+    return ["fitted", *interval_captions(level, "mean"), *interval_captions(level, "new value"),
+            "leverage", "range"]
+
+
 def coef_table(result: FitResult | CerResult, options: Options | None = None) -> Table:
-    """One row per term: estimate, standard error, t ratio, p-value, interval, VIFs.
+    """One row per term: estimate, interval, standard error, t, p, VIFs.
 
     VIF columns are blank for the intercept; any other blank gets a note row below.
     A CER: ``a`` first, then the exponents or slopes (``cells.cerrows``)."""
@@ -153,15 +171,16 @@ def coef_table(result: FitResult | CerResult, options: Options | None = None) ->
         rows, notes = cer_coef_rows(result, opts.header)
         note_rows(rows, notes)
         return finish_table(rows)
-    rows: list[list[Any]] = [list(COEF_COLUMNS)] if opts.header else []
+    captions = coef_captions(result.level)
+    rows: list[list[Any]] = [captions] if opts.header else []
     blanks: dict[str, str] = {}
     for c in result.coefficients:
         row: list[Any] = [c.term]
-        for col in COEF_COLUMNS[1:]:
+        for col, caption in zip(COEF_COLUMNS[1:], captions[1:]):
             v = getattr(c, col)
             word = _missing_word(v)
             if word and not (c.term == "intercept" and col.startswith("vif")):
-                blanks.setdefault(col, word)
+                blanks.setdefault(caption, word)
             row.append(v)
         rows.append(row)
     note = _blank_note(blanks)
@@ -171,13 +190,13 @@ def coef_table(result: FitResult | CerResult, options: Options | None = None) ->
 
 
 def stats_table(result: FitResult | CerResult, options: Options | None = None) -> Table:
-    """Rows ``statistic, value``: model, n_used, n_dropped, the FitStats fields, level,
-    fit_space (the space of the rows above it: log for a log fit), the unit-space block
-    (see, cv, r2_unit, bias_percent, spe for multiplicative fits, the relevant range),
-    base_year when stated, then
-    ``note`` rows (engine notes, dropped rows, blank values). A CER: ``cells.cerrows``."""
+    """Rows ``question, measure, value`` (``cells.statrows``): model, rows, the FitStats
+    fields, level, fit_space (the space of R², SEE and F: log for a log fit), the unit-space
+    block (see, cv, r2_unit, bias_percent, spe for multiplicative fits), the relevant range,
+    base_year when stated, then rows ``notes, "", text`` (engine notes, dropped rows, blank
+    values). A CER: ``cells.cerrows``."""
     opts = options or Options()
-    rows: list[list[Any]] = [["statistic", "value"]] if opts.header else []
+    rows: list[list[Any]] = [["question", "measure", "value"]] if opts.header else []
     blanks: dict[str, str] = {}
     if isinstance(result, CerResult):
         body, notes = cer_stats_rows(result, opts.base_year)
@@ -193,16 +212,17 @@ def stats_table(result: FitResult | CerResult, options: Options | None = None) -
         if opts.base_year is not None:
             body.append(["base_year", opts.base_year])
         notes = list(result.notes)
-    for name, v in body:
+    body = arrange(body)
+    for _, caption, v in body:
         word = _missing_word(v) if not isinstance(v, str) else None
         if word:
-            blanks[name] = word
+            blanks[caption] = word
     rows += body
     note = _blank_note(blanks)
     if note:
         notes.append(note)
     for n in notes:
-        rows.extend([STATS_NOTE, line] for line in wrap_text(n, MAX_TEXT))
+        rows.extend([STATS_NOTE, "", line] for line in wrap_text(n, MAX_TEXT))
     return finish_table(rows)
 
 
@@ -274,7 +294,8 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None)
     ``extrapolated`` or ``dropped: ...`` with blanks for a row that has no usable x)."""
     opts = options or Options()
     pts, good, codes = new_points(result, new_x, opts)
-    rows: list[list[Any]] = [list(PREDICT_COLUMNS)] if opts.header else []
+    captions = predict_captions(opts.level)
+    rows: list[list[Any]] = [captions] if opts.header else []
     if isinstance(result, CerResult):
         cer_rows = cer_predict_rows(result, pts, opts.level) if good.any() else []
         rows += aligned_rows(good, codes, len(PREDICT_COLUMNS), "new_x", cer_rows.__getitem__)
@@ -288,7 +309,7 @@ def predict_table(result: FitResult, new_x: Any, options: Options | None = None)
         vals = [pred.fitted[j], pred.ci_lower[j], pred.ci_upper[j], pred.pi_lower[j],
                 pred.pi_upper[j], pred.leverage[j]]
         flag = "extrapolated" if bool(pred.extrapolated[j]) else "inside"
-        missing = [name for name, v in zip(PREDICT_COLUMNS, vals) if _missing_word(v)]
+        missing = [name for name, v in zip(captions, vals) if _missing_word(v)]
         if missing:
             flag += "; blank: " + ", ".join(missing) + " not finite"
         return vals + [flag]

@@ -64,7 +64,7 @@ def run_plot(args: argparse.Namespace) -> int:
                          f"predictor{'s' if k != 1 else ''}; kinds that apply: "
                          f"{', '.join(fits)}")
     for kind in write_figures(f.result, args.out, kinds, svg=args.svg, force=args.force,
-                              scan=scan):
+                              scan=scan, first_row=f.y_area.r1 + f.inp.header_rows):
         for suffix in (".png", ".svg") if args.svg else (".png",):
             print(f"wrote {args.out / (kind + suffix)}")
     return EXIT_OK
@@ -89,7 +89,7 @@ def run_report(args: argparse.Namespace) -> int:
 
     f = fit_from_args(args, cer=True)
     src = Source(file=f.book.path.name, y_ref=f.y_area.label(), x_ref=f.x_area.label(),
-                 options=f.inp.options.to_text())
+                 options=f.inp.options.to_text(), first_row=f.y_area.r1 + f.inp.header_rows)
     if isinstance(f.result, CerResult):  # a CER: its card on top (report.build_cer_report)
         from xlbridge.cells.cer import card_facts
         from xlbridge.report import build_cer_report

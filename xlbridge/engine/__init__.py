@@ -23,7 +23,7 @@ from .unitstats import UnitStats, unit_stats
 
 if TYPE_CHECKING:  # for type checkers and editors; at run time see __getattr__
     from .candidates import CandidateRow, CandidateTable, compare_candidates
-    from .diagnostics import Check, RowDiagnostics, checks, row_diagnostics
+    from .diagnostics import Check, RowDiagnostics, checks, cooks_cutoff, row_diagnostics
     from .groups import GroupsResult, fit_groups
     from .learning import LearningCurve, learning_curve
     from .normalize import to_base_year
@@ -31,7 +31,8 @@ if TYPE_CHECKING:  # for type checkers and editors; at run time see __getattr__
 
 __all__ = ["fit", "fit_groups", "GroupsResult", "FitResult", "FitStats", "Coefficient",
            "CenteredForm", "Prediction", "NoteKind", "ModelError", "ModelErrorKind", "check_level",
-           "ModelSpec", "parse_model", "checks", "Check", "row_diagnostics", "RowDiagnostics",
+           "ModelSpec", "parse_model", "checks", "Check", "cooks_cutoff", "row_diagnostics",
+           "RowDiagnostics",
            "scan_degrees", "DegreeScan", "DegreeRow", "optimum", "Optimum", "StationaryPoint",
            "slopes", "Slopes"]
 # cost-estimating relationships, learning curves, base-year indexing (issue 13)
@@ -41,7 +42,8 @@ __all__ += ["fit_cer", "CerResult", "CerCoefficient", "CerPrediction", "unit_sta
 
 _LAZY = {  # name -> the module that defines it, imported on first use
     **dict.fromkeys(("fit_groups", "GroupsResult"), "groups"),
-    **dict.fromkeys(("checks", "Check", "row_diagnostics", "RowDiagnostics"), "diagnostics"),
+    **dict.fromkeys(("checks", "Check", "cooks_cutoff", "row_diagnostics", "RowDiagnostics"),
+                    "diagnostics"),
     **dict.fromkeys(("scan_degrees", "DegreeScan", "DegreeRow"), "scan"),
     **dict.fromkeys(("compare_candidates", "CandidateTable", "CandidateRow"), "candidates"),
     **dict.fromkeys(("learning_curve", "LearningCurve"), "learning"),

@@ -28,6 +28,12 @@ from .result import FitResult
 from .solve import monomials
 
 P_WATCH, P_PROBLEM = 0.05, 0.01
+
+
+def cooks_cutoff(n_used: int) -> float:
+    """Cook's distance above which a row is flagged influential: 4/n (common practice)."""
+    return 4 / n_used
+
 SHAPIRO_MAX_ROWS = 5000
 
 
@@ -129,7 +135,7 @@ def row_diagnostics(res: FitResult) -> RowDiagnostics:
         return out
 
     flags = []
-    lev_cut, cook_cut = 2 * p / n, 4 / n
+    lev_cut, cook_cut = 2 * p / n, cooks_cutoff(n)
     j = 0
     for used in res.used:
         if not used:
@@ -335,10 +341,11 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         out.append(Check("influence (Cook's distance)", math.nan, math.nan, "n/a", ""))
     else:
         i = int(np.nanargmax(cooks))
-        above4, above1 = int(np.sum(cooks > 4 / n)), int(np.sum(cooks > 1))
+        above4, above1 = int(np.sum(cooks > cooks_cutoff(n))), int(np.sum(cooks > 1))
         verdict = "problem" if above1 else ("watch" if cooks[i] > 0.5 else "ok")
         out.append(Check("influence (Cook's distance)", float(cooks[i]), math.nan, verdict,
-                         f"largest at row {rows[i]}; {above4} rows above 4/n = {4 / n:.3g}, "
+                         f"largest at row {rows[i]}; {above4} rows above 4/n = "
+                         f"{cooks_cutoff(n):.3g}, "
                          f"{above1} above 1 (watch above 0.5)"))
 
     vifs = [c.vif for c in res.coefficients if c.term != "intercept"]
