@@ -84,6 +84,20 @@ def test_options_are_frozen_and_keys_come_from_one_table():
         assert key in options_help()
 
 
+def test_cer_options_list_their_valid_values():
+    with pytest.raises(OptionsError, match="log or mupe or zmpe or ols"):
+        parse_options("method=least")
+    with pytest.raises(OptionsError, match="between 0 and 100"):
+        parse_options("levels=10,120")
+    with pytest.raises(OptionsError, match="1000 to 9999"):
+        parse_options("base_year=24")
+    o = parse_options("method=MUPE; levels=10, 50,90; base_year=2025; forms=power,linear")
+    assert (o.method, o.levels, o.base_year, o.forms) == ("mupe", (10.0, 50.0, 90.0), 2025,
+                                                          ("power", "linear"))
+    assert o.fit_kwargs()["method"] == "mupe" and "correction" in o.fit_kwargs()
+    assert "correction" not in parse_options("correction=normal").fit_kwargs()
+
+
 def test_fit_kwargs_only_carry_what_changes_the_fit():
     o = parse_options("level=0.9; intercept=no; header=no; names=no; folds=5; se=hc3")
     assert o.fit_kwargs() == {"level": 0.9, "intercept": False, "log": False, "se": "hc3",
@@ -95,6 +109,14 @@ option_values = st.fixed_dictionaries({}, optional={
     "intercept": st.booleans(),
     "header": st.booleans(),
     "names": st.sampled_from(["auto", "yes", "no"]),
+    "method": st.sampled_from([None, "log", "mupe", "zmpe", "ols"]),
+    "correction": st.sampled_from(["smearing", "normal", "none"]),
+    "levels": st.lists(st.floats(min_value=0.5, max_value=99.5), min_size=1, max_size=5)
+    .map(lambda v: tuple(float(f"{x:g}") for x in v)),
+    "base_year": st.one_of(st.none(), st.integers(1000, 9999)),
+    "forms": st.lists(st.sampled_from(["power", "factor", "exponential", "linear"]),
+                      min_size=1, max_size=4, unique=True).map(tuple),
+    "max_drivers": st.integers(1, 3),
 })
 
 

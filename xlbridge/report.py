@@ -247,7 +247,7 @@ def write_report(path: str | Path, res: FitResult, **kwargs) -> Path:
 CER_CSS = """
 section.card { border: 2px solid #1f4e79; border-radius: 6px; padding: .2rem 1rem 1rem;
                background: #fbfcfe; }
-section.card td { text-align: left; white-space: normal; }
+section.card td, section.card th { text-align: left; white-space: normal; }
 section.card h2 { margin-top: .6rem; }
 ul.cautions li { color: #7a4a00; }
 """
