@@ -35,6 +35,12 @@ def as_dict(table):
     return {r[0]: r[1] for r in table[1:] if r[0] not in ("note", "caution")}
 
 
+def card_fields(table):
+    """A card table read back to its fields (the captions are the house style's)."""
+    field_of = {v: k for k, v in cer_cells.CARD_CAPTIONS.items()}
+    return {field_of.get(r[0], r[0]): r[1] for r in table[1:] if r[0] != "caution"}
+
+
 def coef(table, name):
     head = table[0]
     row = next(r for r in table[1:] if r[0] == name)
@@ -94,7 +100,7 @@ def test_polynomial_stats_gain_the_unit_block_and_name_their_space():
 def test_base_year_is_shown_with_every_equation():
     for model, opts in (("power", "method=zmpe; base_year=2019"), (2.0, "base_year=2019")):
         assert ws.XB_EQUATION(Y, X, model, opts)[0][0].endswith("(costs in 2019 prices)")
-    card = as_dict(ws.XB_CERCARD(Y, X, "power", "method=log; base_year=2019"))
+    card = card_fields(ws.XB_CERCARD(Y, X, "power", "method=log; base_year=2019"))
     assert card["equation"].endswith("(costs in 2019 prices)") and card["base_year"] == 2019
 
 
@@ -102,7 +108,7 @@ def test_base_year_is_shown_with_every_equation():
 
 def test_percentiles_of_a_log_cer_follow_the_t_in_log_space():
     t = ws.XB_PLEVELS(Y, X, "power", [[30.0], [55.0]], "method=log; levels=10,50,80")
-    assert t[0][:4] == ["estimate", "p10", "p50", "p80"]
+    assert t[0][:4] == ["estimate", "P10", "P50", "P80"]
     z = np.column_stack([np.ones(len(WEIGHT)), np.log(WEIGHT)])
     coefs, *_ = np.linalg.lstsq(z, np.log(COST), rcond=None)
     e = np.log(COST) - z @ coefs
@@ -130,8 +136,9 @@ def test_candidates_rank_the_true_driver_first():
     noise = np.round(RNG.uniform(1, 9, WEIGHT.size), 3)
     drivers = [["weight", "noise"]] + [[w, v] for w, v in zip(WEIGHT.tolist(), noise.tolist())]
     t = ws.XB_CANDIDATES(Y, drivers, "forms=power,linear; methods=log,mupe,zmpe")
-    assert tuple(t[0]) == cer_cells.CANDIDATE_COLUMNS
-    rows = [dict(zip(t[0], r)) for r in t[1:] if r[0] != "" and not str(r[0]).startswith("note")]
+    assert tuple(t[0]) == cer_cells.CANDIDATE_CAPTIONS
+    rows = [dict(zip(cer_cells.CANDIDATE_COLUMNS, r)) for r in t[1:]
+            if r[0] != "" and not str(r[0]).startswith("note")]
     assert rows[0]["verdict"] == "best" and rows[0]["drivers"] == "weight"
     assert all(r["n"] == len(COST) for r in rows)
     # the best row's SPE is the unit-space SPE of that fit from XB_STATS
@@ -145,11 +152,11 @@ def test_learning_curve_from_exact_unit_data_gives_the_published_closed_forms():
     units = [float(n) for n in range(1, 11)]
     costs = [100.0 * n ** math.log2(0.85) for n in units]
     d = as_dict(ws.XB_LEARNING(units, costs, [[125.0]], "names=no"))
-    assert d["slope_percent"] == pytest.approx(85.0, rel=1e-10)
-    assert d["t1"] == pytest.approx(100.0, rel=1e-10)
-    assert d["unit 125"] == pytest.approx(32.23647, abs=5e-6)  # 100 * 125^log2(0.85)
+    assert d["slope, %"] == pytest.approx(85.0, rel=1e-10)
+    assert d["first-unit cost (T1)"] == pytest.approx(100.0, rel=1e-10)
+    assert d["cost of unit 125"] == pytest.approx(32.23647, abs=5e-6)  # 100 * 125^log2(0.85)
     direct = sum(100.0 * n ** math.log2(0.85) for n in range(1, 126))  # the direct sum
-    assert d["units 1-125 (cumulative)"] == pytest.approx(direct, rel=1e-12)
+    assert d["cost of units 1-125"] == pytest.approx(direct, rel=1e-12)
     assert direct == pytest.approx(5201.085, abs=5e-4)
 
 
@@ -159,10 +166,10 @@ def test_learning_curve_from_lots_recovers_an_exact_80_percent_curve():
     costs = [sum(100.0 * i**b for i in range(int(f), int(g) + 1)) for f, g in lots]
     d = as_dict(ws.XB_LEARNING([["first", "last"]] + lots, ["lot cost"] + costs,
                                [[101.0, 110.0]]))
-    assert d["slope_percent"] == pytest.approx(80.0, rel=1e-9)
-    assert d["t1"] == pytest.approx(100.0, rel=1e-9)
+    assert d["slope, %"] == pytest.approx(80.0, rel=1e-9)
+    assert d["first-unit cost (T1)"] == pytest.approx(100.0, rel=1e-9)
     want = sum(100.0 * i**b for i in range(101, 111))  # direct sum of the lot's units
-    assert d["units 101-110"] == pytest.approx(want, rel=1e-9)
+    assert d["cost of units 101-110"] == pytest.approx(want, rel=1e-9)
 
 
 # --- base year -----------------------------------------------------------------------------
@@ -180,17 +187,17 @@ def test_base_year_costs_are_the_index_ratio():
 
 def test_card_shows_the_spread_at_the_centre_and_a_stable_content_hash():
     t = ws.XB_CERCARD(Y, X, "power", "method=mupe")
-    d = as_dict(t)
+    d = card_fields(t)
     assert d["form"] == "power" and d["method"].startswith("mupe")
     assert d["n_used"] == len(COST) and d["n_dropped"] == 0
     # multiplicative error: P20/P80 = estimate * (1 -/+ t(0.8, df) * SPE * sqrt(1 + h))
-    assert d["P80 vs estimate percent"] == pytest.approx(-d["P20 vs estimate percent"], rel=1e-9)
-    assert d["P80 vs estimate percent"] > 100 * sps.t.ppf(0.8, len(COST) - 2) * d["spe"]
-    assert d["input content hash"] == as_dict(ws.XB_CERCARD(Y, X, "power", "method=mupe"))[
-        "input content hash"]
+    assert d["p80_percent"] == pytest.approx(-d["p20_percent"], rel=1e-9)
+    assert d["p80_percent"] > 100 * sps.t.ppf(0.8, len(COST) - 2) * d["spe"]
+    assert d["input_hash"] == card_fields(ws.XB_CERCARD(Y, X, "power", "method=mupe"))[
+        "input_hash"]
     other = Y[:-1] + [Y[-1] + 1.0]
-    assert as_dict(ws.XB_CERCARD(other, X, "power", "method=mupe"))["input content hash"] \
-        != d["input content hash"]
+    assert card_fields(ws.XB_CERCARD(other, X, "power", "method=mupe"))["input_hash"] \
+        != d["input_hash"]
     assert any(r[0] == "caution" for r in t)
 
 

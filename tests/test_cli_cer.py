@@ -94,8 +94,8 @@ def test_card_json_has_the_spread_at_the_centre(book, capsys):
     doc = json.loads(out)
     api = xlbridge.fit(COST, WEIGHT, "power", method="mupe", names=("weight",))
     pc = xlbridge.percentiles(api, [WEIGHT.mean()], (20, 50, 80))
-    assert doc["P20 at centre"] == pytest.approx(pc.values[0][0], rel=1e-12)
-    assert doc["P80 at centre"] == pytest.approx(pc.values[0][2], rel=1e-12)
+    assert doc["p20_at_centre"] == pytest.approx(pc.values[0][0], rel=1e-12)
+    assert doc["p80_at_centre"] == pytest.approx(pc.values[0][2], rel=1e-12)
     assert doc["cautions"] and doc["fit"]["form"] == "power"
 
 
@@ -136,7 +136,8 @@ def test_learning_from_lots_recovers_the_curve_and_costs_a_lot(book, capsys):
     assert doc["slope"] == pytest.approx(0.85, rel=1e-6)
     assert doc["t1"] == pytest.approx(100.0, rel=1e-5)
     want = sum(100 * i ** math.log2(0.85) for i in range(101, 121))  # direct sum
-    assert doc["costs"]["units 101-120"] == pytest.approx(want, rel=1e-5)
+    assert doc["costs"] == [{"first_unit": 101.0, "last_unit": 120.0,
+                             "cost": pytest.approx(want, rel=1e-5)}]
 
 
 def test_bad_input_gives_a_message_naming_the_row_never_a_number(book, tmp_path, capsys):

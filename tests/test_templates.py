@@ -71,4 +71,4 @@ def test_recalc_fills_every_model_cell_without_error(name, tmp_path, capsys):
     assert any(v == "maximum" for v in values) or name != "margin_surface.xlsx"
     # the CER workbook: its card, a best candidate and the learning curve's slope
     if name == "steel_cer.xlsx":
-        assert {"CER card", "best", "slope_percent", "cost_k_2025"} <= set(values)
+        assert {"CER card", "best", "slope, %", "cost_k_2025"} <= set(values)

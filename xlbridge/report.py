@@ -253,18 +253,6 @@ ul.cautions li { color: #7a4a00; }
 """
 
 
-def _rows_html(table: list[list]) -> str:
-    """A cells table (header row first) as HTML, its note rows as a list below it."""
-    from .cells.tables import split_notes
-
-    body, notes = split_notes(table)
-    out = _table([str(h) for h in body[0]], body[1:], text=(0,))
-    if notes:
-        out += "<ul class='small'>" + "".join(f"<li>{html.escape(n)}</li>"
-                                             for n in notes) + "</ul>"
-    return out
-
-
 def build_cer_report(res, facts, *, source: Source | None = None, title: str | None = None,
                      options=None, candidates: list[list] | None = None,
                      pngs: dict[str, bytes] | None = None) -> str:
@@ -273,6 +261,7 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
     the candidate comparison (a ``cells.cer.candidates_table``, when given), cautions and
     versions."""
     from . import cells, cerplots
+    from .cells.cer import card_caption
 
     src = source or Source()
     opts = options or cells.Options()
@@ -281,7 +270,8 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
              f"<title>{html.escape(title)}</title><style>{CSS}{CER_CSS}</style></head><body>",
              f"<h1>{html.escape(title)}</h1>",
              "<section class='card' id='card'><h2>CER card</h2>",
-             _table(["item", "value"], [list(kv) for kv in facts.items], text=(0,)),
+             _table(["item", "value"], [[card_caption(k), v] for k, v in facts.items],
+                    text=(0,)),
              "<h3>Cautions</h3><ul class='cautions'>",
              *[f"<li>{html.escape(c)}</li>" for c in facts.cautions], "</ul></section>"]
 
@@ -292,7 +282,7 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
     parts.append(_table(["item", "value"], rows, text=(0, 1)))
 
     parts.append("<h2 id='coefficients'>Coefficients</h2>")
-    parts.append(_rows_html(cells.coef_table(res, opts.replace(header=True))))
+    parts.append(_cells_table(cells.coef_table(res, opts.replace(header=True))))
     parts.append("<h2 id='statistics'>Statistics, by the question they answer</h2>")
     parts.append(_questions_table(cells.stats_table(res, opts.replace(header=True))))
 
@@ -304,7 +294,7 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
 
     if candidates is not None:
         parts.append("<h2 id='candidates'>Candidate CERs</h2>")
-        parts.append(_rows_html(candidates))
+        parts.append(_cells_table(candidates, text=(1, 2, 3, len(candidates[0]) - 1)))
 
     parts.append("<h2 id='cautions'>Cautions</h2><ul>")
     parts += [f"<li>{html.escape(c)}</li>" for i, c in enumerate(CAUTIONS) if i != 1]

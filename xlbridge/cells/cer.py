@@ -31,18 +31,46 @@ from .cerrows import with_base_year
 from .errors import CellError, CellErrorKind, Table
 from .options import Options
 from .prepare import FitInput, fit_prepared, prepare_fit, sheet_row_text
+from .statrows import interval_captions
 from .tables import aligned_rows, finish_table, new_points, note_rows
 from .values import OK, CleanCells, clean_cells, drop_summary, drops_text, options_value, row_codes
 
-__all__ = ["CANDIDATE_COLUMNS", "CARD_DATE", "CardFacts", "baseyear_cells", "candidates_cells",
+__all__ = ["CANDIDATE_CAPTIONS", "CANDIDATE_COLUMNS", "CARD_CAPTIONS", "CARD_DATE", "LotCost",
+           "card_caption", "lot_costs", "CardFacts", "baseyear_cells", "candidates_cells",
            "candidates_table", "card_cells", "card_facts", "card_table", "learning_cells",
            "learning_table", "plevels_cells", "plevels_table", "run_engine"]
 
+#: Fields of a candidate row (JSON names, table order) and their captions in the table.
 CANDIDATE_COLUMNS = ("rank", "form", "method", "drivers", "n", "see", "cv", "spe", "r2_unit",
                      "bias_percent", "worst_p", "max_vif", "verdict")
+CANDIDATE_CAPTIONS = ("rank", "form", "method", "drivers", "rows used", "SEE", "CV", "SPE",
+                      "R² in units", "bias, % of the mean", "largest p of the drivers",
+                      "largest VIF", "verdict")
 SHAPE = CellErrorKind.SHAPE
 #: The card's item that records the day it was made (a pin file does not compare it).
 CARD_DATE = "date"
+RANGE_FIELD = "relevant_range"
+#: Captions of the card's fields in its table (house style: plain words of the trade).
+CARD_CAPTIONS = {
+    "equation": "equation", "form": "form of the CER", "method": "fitting method",
+    "error_model": "error model", "n_used": "rows used", "n_dropped": "rows left out",
+    "dropped_rows": "why rows were left out", "see": "typical miss (SEE)",
+    "cv": "typical miss as share of the mean (CV)", "spe": "typical percent miss (SPE)",
+    "r2_unit": "R² of the estimates in units", "bias_percent": "bias, % of the mean",
+    "centre": "centre of the data (means of the drivers)",
+    "estimate_at_centre": "estimate at the centre", "p20_at_centre": "P20 at the centre",
+    "p80_at_centre": "P80 at the centre", "p20_percent": "P20 vs the estimate, %",
+    "p80_percent": "P80 vs the estimate, %", "base_year": "price year of the costs",
+    CARD_DATE: "date", "input_hash": "content hash of the input",
+    "level": "confidence level of the intervals",
+}
+
+
+def card_caption(field: str) -> str:
+    """The caption of a card field (a driver's relevant range names the driver)."""
+    if field.startswith(RANGE_FIELD + " "):
+        return f"relevant range of {field[len(RANGE_FIELD) + 1:]}"
+    return CARD_CAPTIONS.get(field, field)
 
 
 def run_engine(fn: Callable[[], Any], header_rows: int) -> Any:
@@ -64,8 +92,8 @@ def plevels_table(result: FitResult | CerResult, new_x: Any,
     opts = options or Options()
     pts, good, codes = new_points(result, new_x, opts)
     levels = opts.levels
-    cols = (["estimate"] + [f"p{v:g}" for v in levels]
-            + ["distribution", "location", "scale", "df", "range_flag"])
+    cols = (["estimate"] + [f"P{v:g}" for v in levels]
+            + ["distribution", "location", "scale", "degrees of freedom", "range"])
     rows: list[list[Any]] = [cols] if opts.header else []
     if good.any():
         pc = percentiles(result, pts, levels)
@@ -82,8 +110,8 @@ def plevels_table(result: FitResult | CerResult, new_x: Any,
 
     rows += aligned_rows(good, codes, len(cols), "new_x", row_of)
     dist = pc.params[0]["distribution"] if pc is not None else ""
-    notes = [f"{pc.error_model if pc else ''} error model; percentiles use Student's t with "
-             "df degrees of freedom"]
+    notes = [f"{pc.error_model if pc else ''} error model; the percentiles use Student's t "
+             "with these degrees of freedom"]
     if dist == "lognormal":
         notes.append("lognormal: location and scale are the mean and SD of ln(cost)")
     elif dist == "normal":
@@ -102,7 +130,7 @@ def plevels_cells(y: Any, x: Any, model: Any, new_x: Any, options: Any = None) -
 def candidates_table(table: CandidateTable, options: Options | None = None) -> Table:
     """The ranked candidates, with the rule, the limits and why any fit failed below."""
     opts = options or Options()
-    rows: list[list[Any]] = [list(CANDIDATE_COLUMNS)] if opts.header else []
+    rows: list[list[Any]] = [list(CANDIDATE_CAPTIONS)] if opts.header else []
     notes = [table.rule, f"significance level {table.alpha:g}, VIF limit {table.vif_limit:g}; "
              "cv is SEE / mean y, spe the standard percent error (multiplicative methods)"]
     for r in table.rows:
@@ -172,49 +200,70 @@ def learning_fit(units: Any, costs: Any, options: Any = None
     return curve, opts, drops
 
 
-def _at_rows(curve: LearningCurve, at: Any, opts: Options
-             ) -> list[list[Any]]:
+@dataclass(frozen=True)
+class LotCost:
+    """The cost of units ``first``..``last`` on a learning curve."""
+
+    first: float
+    last: float
+    cost: float
+
+    @property
+    def caption(self) -> str:
+        if self.first == self.last:
+            return f"cost of unit {self.first:g}"
+        return f"cost of units {self.first:g}-{self.last:g}"
+
+
+def lot_costs(curve: LearningCurve, at: Any) -> list[LotCost]:
+    """The costs asked for in ``at``: a column of unit numbers n (unit n, and units 1..n) or
+    two columns m, n (units m..n); rows without two numbers are skipped."""
     a = clean_cells(at, "at", names="no",
                     flat_as_row=isinstance(at, (list, tuple)) and len(at) == 2
                     and not isinstance(at[0], (list, tuple)))
     if a.n_cols not in (1, 2):
         raise CellError("at must be one column (unit numbers n) or two columns (first and last "
                         f"unit m, n); got {a.n_cols} columns", SHAPE)
-    rows: list[list[Any]] = []
+    out: list[LotCost] = []
     for i in range(a.n_rows):
         if (a.codes[i] != OK).any():
             continue
         vals = a.values[i]
         try:
             if a.n_cols == 1:
-                n = vals[0]
-                rows += [[f"unit {n:g}", curve.unit_cost(n)],
-                         [f"units 1-{n:g} (cumulative)", curve.cumulative_cost(n)]]
+                n = float(vals[0])
+                out += [LotCost(n, n, curve.unit_cost(n)),
+                        LotCost(1.0, n, curve.cumulative_cost(n))]
             else:
-                m, n = vals
-                rows.append([f"units {m:g}-{n:g}", curve.lot_cost(m, n)])
+                m, n = (float(v) for v in vals)
+                out.append(LotCost(m, n, curve.lot_cost(m, n)))
         except ModelError as exc:
             raise CellError.from_model(exc, f"at row {i + 1}: {exc}") from None
-    return rows
+    return out
 
 
 def learning_table(curve: LearningCurve, at: Any = None, options: Options | None = None, *,
                    drops: tuple[tuple[str, int], ...] = ()) -> Table:
-    """Rows ``item, value``: theory, data, n, slope (percent) with SE and interval, T1 with
-    SE and interval, the log-space SEE, then the costs asked for in ``at``."""
+    """Rows ``item, value``: theory, data, rows, slope (%) with its interval and standard
+    error, the exponent, T1 with its interval and standard error, the log-space SEE, the
+    level, then the costs asked for in ``at`` (``lot_costs``)."""
     opts = options or Options()
+    s_low, s_high = interval_captions(curve.level, "slope")
+    t_low, t_high = interval_captions(curve.level, "first-unit cost")
     rows: list[list[Any]] = [["item", "value"]] if opts.header else []
-    rows += [["theory", curve.theory], ["data", curve.data or "given"], ["n", curve.n],
-             ["slope_percent", 100 * curve.slope], ["slope_se_percent", 100 * curve.slope_se],
-             ["slope_ci_lower_percent", 100 * curve.slope_ci[0]],
-             ["slope_ci_upper_percent", 100 * curve.slope_ci[1]], ["b", curve.b],
-             ["t1", curve.t1], ["t1_se", curve.t1_se], ["t1_ci_lower", curve.t1_ci[0]],
-             ["t1_ci_upper", curve.t1_ci[1]], ["see_log", curve.see_log],
-             ["level", curve.level]]
+    rows += [["theory", curve.theory], ["data", curve.data or "given"],
+             ["rows used", curve.n], ["slope, %", 100 * curve.slope],
+             [f"{s_low}, %", 100 * curve.slope_ci[0]], [f"{s_high}, %", 100 * curve.slope_ci[1]],
+             ["slope standard error, points of %", 100 * curve.slope_se],
+             ["exponent b = log2(slope)", curve.b], ["first-unit cost (T1)", curve.t1],
+             [t_low, curve.t1_ci[0]], [t_high, curve.t1_ci[1]],
+             ["first-unit cost standard error", curve.t1_se],
+             ["typical miss in log space (SEE)", curve.see_log],
+             ["confidence level of the intervals", curve.level]]
     if at is not None:
-        rows += _at_rows(curve, at, opts)
-    notes = ["fitted by least squares of ln(cost) on ln(unit): see_log is in log space; "
-             "T1's interval is exp of ln T1's, the slope's is 2^(b's interval)"]
+        rows += [[c.caption, c.cost] for c in lot_costs(curve, at)]
+    notes = ["fitted by least squares of ln(cost) on ln(unit number): the SEE is in log "
+             "space; T1's interval is exp of ln T1's, the slope's is 2^(b's interval)"]
     if curve.data == "lot" and curve.theory == "unit":
         notes.append("lot midpoints Q solve T1*Q^b = the lot's average unit cost on the curve: "
                      "Q = (sum of i^b over the lot / lot size)^(1/b), iterated with b")
@@ -264,7 +313,8 @@ def baseyear_cells(costs: Any, years: Any, index: Any, options: Any = None) -> T
 
 @dataclass(frozen=True)
 class CardFacts:
-    """What a CER card shows, as (label, value) items, and its cautions."""
+    """What a CER card shows, as (field, value) items (``CARD_CAPTIONS`` name them in the
+    table; JSON keeps the fields), and its cautions."""
 
     items: tuple[tuple[str, Any], ...]
     cautions: tuple[str, ...]
@@ -303,21 +353,20 @@ def card_facts(res: CerResult, inp_key: str, options: Options | None = None,
         ("n_used", u.n), ("n_dropped", res.n_dropped),
     ]
     if drops:
-        items.append(("dropped rows", drops_text(drops)))
+        items.append(("dropped_rows", drops_text(drops)))
     for name, lo, hi in zip(res.drivers, res.x.min(axis=0), res.x.max(axis=0)):
-        items.append((f"relevant range {name}", f"{lo:.6g} to {hi:.6g}"))
+        items.append((f"{RANGE_FIELD} {name}", f"{lo:.6g} to {hi:.6g}"))
     items += [("see", u.see), ("cv", u.cv)]
     if u.multiplicative:
         items.append(("spe", u.spe))
     items += [("r2_unit", u.r2_unit), ("bias_percent", u.bias_percent)]
     where = ", ".join(f"{n} = {v:.6g}" for n, v in zip(res.drivers, centre))
-    items += [("centre of the data (driver means)", where), ("estimate at centre", est),
-              ("P20 at centre", p20), ("P80 at centre", p80),
-              ("P20 vs estimate percent", 100 * (p20 / est - 1)),
-              ("P80 vs estimate percent", 100 * (p80 / est - 1)),
+    items += [("centre", where), ("estimate_at_centre", est),
+              ("p20_at_centre", p20), ("p80_at_centre", p80),
+              ("p20_percent", 100 * (p20 / est - 1)), ("p80_percent", 100 * (p80 / est - 1)),
               ("base_year", opts.base_year if opts.base_year is not None else "not stated"),
               (CARD_DATE, (today or dt.datetime.now(dt.timezone.utc).date()).isoformat()),
-              ("input content hash", inp_key[:16]), ("level", res.level)]
+              ("input_hash", inp_key[:16]), ("level", res.level)]
     return CardFacts(tuple(items), tuple(cautions(res, opts.base_year)))
 
 
@@ -352,7 +401,7 @@ def card_table(facts: CardFacts, options: Options | None = None) -> Table:
     """Two columns, item and value; one ``caution`` row per caution."""
     opts = options or Options()
     rows: list[list[Any]] = [["item", "value"]] if opts.header else []
-    rows += [[k, v] for k, v in facts.items]
+    rows += [[card_caption(k), v] for k, v in facts.items]
     rows += [["caution", c] for c in facts.cautions]
     return finish_table(rows)
 

@@ -153,7 +153,7 @@ def configure_learning(p: argparse.ArgumentParser) -> None:
 
 
 def run_learning(args: argparse.Namespace) -> int:
-    from xlbridge.cells.cer import learning_fit, learning_table
+    from xlbridge.cells.cer import learning_fit, learning_table, lot_costs
 
     book = open_book(args.book)
     sheet = book.sheet_name(args.sheet) if args.sheet else None
@@ -167,12 +167,13 @@ def run_learning(args: argparse.Namespace) -> int:
     with as_usage():
         curve, opts, drops = learning_fit(units, costs, args.options)
         rows = learning_table(curve, at, opts.replace(header=True), drops=drops)
+        costs = lot_costs(curve, at) if at is not None else []
     if drops:
         from xlbridge.cells.values import drops_text
 
         warn(f"{drops_text(drops)} of --units/--costs left out of the fit")
-    doc = curve.to_dict() | {"costs": {r[0]: r[1] for r in rows
-                                       if isinstance(r[0], str) and r[0].startswith("unit")}}
+    doc = curve.to_dict() | {"costs": [{"first_unit": c.first, "last_unit": c.last,
+                                        "cost": c.cost} for c in costs]}
     src = f"{areas[1].label()} by {areas[0].label()}"
     return _emit(args, book, "learning", src, rows, doc, opts.header)
 
