@@ -381,3 +381,23 @@ def test_values_copy_leaves_out_the_calculation_chain(book: Path, tmp_path: Path
     assert b"calcChain" not in new["[Content_Types].xml"]
     assert new["xl/_rels/workbook.xml.rels"] == parts(book)["xl/_rels/workbook.xml.rels"]
     openpyxl.load_workbook(values)
+
+
+def test_value_types_as_the_file_format_stores_them() -> None:
+    """Numbers of any kind (numpy's too) as shortest round-trip decimals, non-finite ones
+    as #NUM!, dates as serial numbers; a kept formula's text result is t="str"."""
+    import datetime as dt
+
+    import numpy as np
+
+    xml = (b'<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main">'
+           b'<sheetData><row r="1"><c r="A1"><f>XB_X()</f></c></row></sheetData></worksheet>')
+    edits = {(1, 1): CellEdit("text", "keep"), (1, 2): CellEdit(np.int64(7)),
+             (1, 3): CellEdit(np.float64(0.1) + 0.2), (1, 4): CellEdit(float("inf")),
+             (1, 5): CellEdit(dt.datetime(2024, 3, 1, 12)), (1, 6): CellEdit(5)}
+    root = ElementTree.fromstring(patch_sheet_xml(xml, edits, "sheet.xml"))
+    cells = {c.get("r"): (c.get("t"), c.findtext(f"{NS}v")) for c in root.iter(f"{NS}c")}
+    assert cells == {"A1": ("str", "text"), "B1": (None, "7"),
+                     "C1": (None, repr(0.1 + 0.2)), "D1": ("e", "#NUM!"),
+                     "E1": (None, "45352.5"), "F1": (None, "5")}
+    assert float(cells["C1"][1]) == 0.1 + 0.2

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import numbers
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -107,11 +108,11 @@ def _value_xml(value: Any, pfx: bytes, in_formula: bool) -> tuple[bytes | None, 
         return b"b", b"<" + pfx + b"v>" + (b"1" if value else b"0") + b"</" + pfx + b"v>"
     if isinstance(value, (dt.date, dt.time, dt.timedelta)):
         value = serial_of(value)
-    if isinstance(value, (int, float)):
+    if isinstance(value, numbers.Real):  # numpy's numbers too
         number = float(value)
         if not math.isfinite(number):
             return _value_xml("#NUM!", pfx, in_formula)
-        text = str(value) if isinstance(value, int) else repr(number)
+        text = str(int(value)) if isinstance(value, numbers.Integral) else repr(number)
         return None, b"<" + pfx + b"v>" + text.encode("ascii") + b"</" + pfx + b"v>"
     text = str(value)
     if text in ERROR_TEXTS:
