@@ -323,6 +323,10 @@ def test_recalc_output_rules(tmp_path: Path, capsys) -> None:
 
     doc = json.loads(text)
     assert code == 0 and doc["errors"] == 0 and len(doc["cells"]) == 5
+    written = {c["cell"]: c["range"] for c in doc["cells"]}
+    assert written["Model!A20"] == "Model!A20:I23"  # the array range, sized to the table
+    assert written["Model!A30"] == "Model!A30"  # a plain formula: its first value only
+    assert doc["parts"]["changed"] == ["xl/worksheets/sheet2.xml"]
 
 
 def test_spill_references(tmp_path: Path) -> None:

@@ -39,13 +39,12 @@ def configure_recalc(p: argparse.ArgumentParser) -> None:
                    help="summary format (default table)")
 
 
-def _cell_rows(evaluation: Any) -> list[dict[str, Any]]:
+def _cell_rows(evaluation: Any, written: dict[str, str]) -> list[dict[str, Any]]:
     rows = []
     for x in evaluation.cells:
-        out = x.output_area()
         rows.append({"cell": x.label, "function": x.function,
                      "status": "ok" if x.ok else "error",
-                     "range": out.label() if x.ok else x.label,
+                     "range": written.get(x.label, x.label),
                      "message": None if x.ok else x.message})
     return rows
 
@@ -78,7 +77,7 @@ def run_recalc(args: argparse.Namespace) -> int:
     if args.format == "json":
         doc = {"book": str(src), "out": str(args.out), "cells_found": len(evaluation.cells),
                "evaluated": len(evaluation.cells) - len(failed), "errors": len(failed),
-               "cells": _cell_rows(evaluation), "values": args.values,
+               "cells": _cell_rows(evaluation, report.ranges), "values": args.values,
                "parts": report.package.to_dict() if report.package else None}
         sys.stdout.write(json_text(doc))
     else:

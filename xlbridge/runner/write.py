@@ -34,6 +34,7 @@ class WriteReport:
     conflicts: list[str] = field(default_factory=list)
     plain_multi: int = 0  # plain (non-array) formulas whose result spans several cells
     package: PatchReport | None = None
+    ranges: dict[str, str] = field(default_factory=dict)  # cell label -> cells written
 
 
 def _range_text(area: Area) -> str:
@@ -67,6 +68,7 @@ def plan_results(evaluation: Evaluation, *, values: bool = False) -> tuple[Edits
             if out.n_rows > 1 or out.n_cols > 1:
                 rep.plain_multi += 1
             cells[anchor] = CellEdit(_first(x.result), formula_edit)
+            rep.ranges[x.label] = x.anchor.label()
             rep.written += 1
             written.append(x)
             continue
@@ -91,6 +93,7 @@ def plan_results(evaluation: Evaluation, *, values: bool = False) -> tuple[Edits
                                  None if values or arr is None else _range_text(out))
         if arr is None and (out.n_rows > 1 or out.n_cols > 1):
             rep.plain_multi += 1
+        rep.ranges[x.label] = out.label()
         rep.written += 1
         written.append(x)
     return edits, rep
