@@ -17,7 +17,7 @@ import numpy as np
 from .exact import ExactFit, ExactSingular, shift_matrix
 from .refine import binomials, map_pair, raw_map_pair, refine, slice_bits
 from .terms import ModelError, ModelSpec
-from .threads import blas_threads_for
+from .threads import blas_threads
 
 EPS = 2.0**-53
 #: A term is aliased when its column, after scaling to unit length, lies within this
@@ -183,7 +183,7 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     precision, accepted by its error estimate), "refined" (iterative refinement in
     double-double arithmetic, accepted by its own estimate) or "exact" (the integer refit,
     the last resort when neither estimate is below ACCEPT_ERROR)."""
-    with blas_threads_for(len(y) * len(spec.all_powers)):
+    with blas_threads(0):  # one thread, except around the factorisation below
         return _solve(x, y, w, spec)
 
 
@@ -205,7 +205,9 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
     r_fac = None
     if n >= CHOLESKY_MIN_ROWS:
         try:
-            r_fac = np.linalg.cholesky(an.T @ an).T
+            with blas_threads(n * p * p):
+                gram_n = an.T @ an
+            r_fac = np.linalg.cholesky(gram_n).T
         except np.linalg.LinAlgError:
             r_fac = None
         if r_fac is not None and np.min(np.abs(np.diag(r_fac))) > CHOLESKY_MIN_DIAG:
@@ -213,7 +215,8 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
         else:
             r_fac = None
     if r_fac is None:
-        q, r_fac = np.linalg.qr(an)
+        with blas_threads(n * p * p):
+            q, r_fac = np.linalg.qr(an)
     diag = np.abs(np.diag(r_fac))
     for j in range(p):
         if not diag[j] > ALIAS_TOL:
