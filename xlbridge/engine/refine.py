@@ -76,13 +76,14 @@ def slice_bits(m: int) -> int:
 
 
 def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int) -> list[np.ndarray]:
-    """[S1, S2, R] with hi + lo == S1 + S2 + R up to the rounding of R (below 2^-(2 bits)
-    of max|hi|, so R's own rounding is under 2^-(2 bits + 53) of it). S1 and S2 are integer
-    multiples of 2^(mu - bits) and 2^(mu - 2 bits) with |S_k| <= 2^mu, mu from max|hi|."""
+    """[S1, S2, R, S1 + S2] with hi + lo == S1 + S2 + R up to the rounding of R (below
+    2^-(2 bits) of max|hi|, so R's own rounding is under 2^-(2 bits + 53) of it). S1 and S2
+    are integer multiples of 2^(mu - bits) and 2^(mu - 2 bits) with |S_k| <= 2^mu, mu from
+    max|hi|; their sum (kept for reuse) is exact."""
     top = float(np.max(np.abs(hi))) if np.size(hi) else 0.0
     if top == 0.0:
         zero = np.zeros_like(hi)
-        return [zero, zero, zero + lo]
+        return [zero, zero, zero + lo, zero]
     mu = int(np.frexp(top)[1])  # top < 2^mu
     parts = []
     rest = hi
@@ -94,6 +95,7 @@ def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int) -> list[np.ndarray
         rest = rest - q  # exact: q is rest rounded to a coarser grid
         parts.append(q)
     parts.append(rest + lo)
+    parts.append(parts[0] + parts[1])
     return parts
 
 
@@ -110,13 +112,14 @@ def _accumulate(exact: list[np.ndarray], rest: np.ndarray):
 
 
 def sliced_product(a: list[np.ndarray], b: list[np.ndarray]):
-    """a @ b for sliced operands as a pair (hi, lo): the products of slices S_i @ S_j
-    (i + j <= 3, and S2 @ S2) are exact; the remainder terms are plain double."""
-    a1, a2, ar = a
-    b1, b2, br = b
-    exact = [a1 @ b1, a1 @ b2, a2 @ b1, a2 @ b2]
-    rest = (a1 + a2) @ br + ar @ (b1 + b2 + br)
-    return _accumulate(exact, rest)
+    """a @ b for sliced operands (see ``slices``) as a pair (hi, lo): S1 @ S1, S1 @ S2 and
+    S2 @ S1 are exact and summed without error; S2 @ S2 (below 2^-(bits_a + bits_b) of the
+    whole) and the remainder terms are plain double, their rounding below 2^-(bits_a +
+    bits_b + 53) of the whole."""
+    a1, a2, ar, a12 = a
+    b1, b2, br, b12 = b
+    rest = a2 @ b2 + a12 @ br + ar @ (b12 + br)
+    return _accumulate([a1 @ b1, a1 @ b2, a2 @ b1], rest)
 
 
 def design_pair(x: np.ndarray, centers: np.ndarray, scales: np.ndarray,
@@ -190,13 +193,14 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     th, tl = design_pair(x, centers, scales, powers)
     # balance columns by powers of two (exact) so that norms below are on a unit scale
     cmax = np.max(np.abs(th), axis=0)
-    if not _finite(th, tl, y) or np.any(cmax == 0) or (w is not None and not _finite(w)):
+    # x, y and w are finite (checked by fit); a design too large for double shows here
+    if not np.all(np.isfinite(cmax)) or np.any(cmax == 0):
         return None
     d = np.ldexp(1.0, -np.frexp(cmax)[1])  # column j of T times d_j has max in [1/2, 1)
     th, tl = th * d, tl * d
     bits = slice_bits(max(n, p))
     t_s = slices(th, tl, bits)
-    t_sT = [s.T for s in t_s]
+    t_sT = [part.T for part in t_s]
     if w is None:
         wt_s = t_s
     else:
