@@ -169,7 +169,7 @@ class Refined:
     sse: float  # weighted sum of squared residuals
     err_resid: float  # estimated error of each residual (absolute, at most)
     err_b: np.ndarray  # estimated absolute error of each coefficient (b_hi + b_lo)
-    err_inv: float  # estimated error of the inverse, relative to its largest entry
+    err_inv: np.ndarray  # estimated absolute error of each entry of the inverse
     steps: int
 
 
@@ -181,6 +181,12 @@ def refine(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, centers: np.ndarr
     with np.errstate(over="ignore", invalid="ignore"):
         out = _refine(x, y, w, centers, scales, powers, b0, inv0)
     return out
+
+
+def _mirror(a: np.ndarray) -> np.ndarray:
+    """The upper triangle copied onto the lower (averaging would round each pair's hi part
+    without carrying the rounding into its lo part)."""
+    return np.triu(a) + np.triu(a, 1).T
 
 
 def _finite(*arrays) -> bool:
@@ -207,7 +213,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
         wh, wl = two_prod(w[:, None], th)
         wt_s = slices(wh, wl + w[:, None] * tl, bits)
     g_hi, g_lo = sliced_product(t_sT, wt_s)  # G = D T'WT D
-    g_hi, g_lo = (g_hi + g_hi.T) / 2, (g_lo + g_lo.T) / 2  # exact: both halves are equal
+    g_hi, g_lo = _mirror(g_hi), _mirror(g_lo)  # exactly symmetric, upper triangle kept
     x0 = inv0 / np.outer(d, d)  # (D T'WT D)^-1
     x0 = (x0 + x0.T) / 2
     # residual of the inverse, E = I - G X0, in double-double; X1 = X0 + X0 E
@@ -217,7 +223,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     e_mat = e_hi + (e_lo - gx_lo)
     corr = x0 @ e_mat
     inv_hi, inv_lo = two_sum(x0, corr)
-    inv_hi, inv_lo = (inv_hi + inv_hi.T) / 2, (inv_lo + inv_lo.T) / 2
+    inv_hi, inv_lo = _mirror(inv_hi), _mirror(inv_lo)
     rho = float(np.max(np.sum(np.abs(e_mat), axis=1)))  # ||I - G X0|| (infinity norm)
     if not _finite(g_hi, g_lo, inv_hi, inv_lo) or not rho < 0.5:
         return None
@@ -226,7 +232,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     # X0 E, and G's own error (slices exact; leftover terms below 2^-(2 bits) * eps * m)
     g_err = 4.0 * EPS * 2.0 ** (-2 * bits) * n * float(np.max(np.abs(g_hi)))
     err_inv = (norm_x * rho * rho / (1 - rho) + 4 * EPS * float(np.max(np.abs(corr)))
-               + 2 * norm_x * norm_x * g_err) / float(np.max(np.abs(x0)))
+               + 2 * norm_x * norm_x * g_err)  # any entry, balanced columns
 
     b_hi, b_lo = b0 / d, np.zeros(p)  # coefficients on the balanced columns
     bits_b = max(1, 52 - int(p).bit_length() - bits)
@@ -273,7 +279,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     sse = float(np.sum(sq))  # pairwise: relative error below (log2 n + 3) eps
     dd2 = np.outer(d, d)
     return Refined(b_hi * d, b_lo * d, inv_hi * dd2, inv_lo * dd2, r_hi, r_lo, sse, err_r,
-                   err_b, err_inv, steps)
+                   err_b, err_inv * dd2, steps)
 
 
 def _residual(y, t_s, b_hi, b_lo, bits_b):
@@ -328,10 +334,7 @@ def map_pair(m_hi: np.ndarray, m_lo: np.ndarray, v_hi: np.ndarray, v_lo) -> tupl
     Rows of m are balanced by powers of two first, so each row keeps its own precision."""
     top = np.max(np.abs(m_hi), axis=1)
     rs = np.ldexp(1.0, -np.frexp(np.where(top > 0, top, 1.0))[1])
-    if m_hi.ndim == 2 and np.ndim(v_hi) == 2:
-        rs_b = rs[:, None]
-    else:
-        rs_b = rs[:, None]
+    rs_b = rs[:, None]
     m_inner = m_hi.shape[1]
     bits = slice_bits(m_inner)
     bits_v = max(1, 52 - int(m_inner).bit_length() - bits)

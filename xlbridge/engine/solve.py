@@ -304,9 +304,10 @@ def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
         rowmax = mabs.max(axis=1)
         rel_beta = (mabs @ ref.err_b + tiny * rowmax * float(np.sum(np.abs(ref.b_hi))))
         rel_beta = rel_beta / np.abs(beta)
-        xmax = float(np.max(np.abs(ref.inv_hi)))
-        rel_inv = (mabs.sum(axis=1) ** 2 * xmax * (ref.err_inv + tiny)) / np.abs(
-            np.diag(inv_raw))
+        # |M| E |M|' with E the entrywise error of the refined inverse, plus the leftover of
+        # the double-double products with M, charged on |M| |X| |M|'
+        spread = np.einsum("ij,jk,ik->i", mabs, ref.err_inv + tiny * np.abs(ref.inv_hi), mabs)
+        rel_inv = spread / np.abs(np.diag(inv_raw))
         wmax = 1.0 if w is None else float(np.max(w))
         d_sse = wmax * (2 * ref.err_resid * float(np.sum(np.abs(resid)))
                         + n * ref.err_resid**2)
