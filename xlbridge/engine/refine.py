@@ -238,8 +238,9 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     bits_b = max(1, 52 - int(p).bit_length() - bits)
     bits_u = max(1, 52 - int(n).bit_length() - bits)
     steps, tail = 0, np.inf
+    r_hi, r_lo = _residual(y, t_s, b_hi, b_lo, bits_b)
+    updated = 0.0  # error added to each residual by the cheap updates below
     while True:
-        r_hi, r_lo = _residual(y, t_s, b_hi, b_lo, bits_b)
         # the error left after a step is at most rho / (1 - rho) times that step (the step
         # is, to first order, the error it removed): stop when that is far below the last
         # bit of the coefficients, when the step stalls, or after MAX_STEPS
@@ -257,17 +258,20 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
             return None
         b_hi, b_lo = dd_add(b_hi, b_lo, delta, 0.0)
         steps += 1
+        # r - T delta in plain double: the step is tiny beside b, so its rounding (at most
+        # (p + 2) eps sum|delta| per row, |T| <= 1 on balanced columns) is far below r's
+        r_hi, r_lo = dd_add(r_hi, r_lo, -(th @ delta + tl @ delta), 0.0)
+        updated += (p + 2) * EPS * float(np.sum(np.abs(delta)))
         new_tail = rho / (1 - rho) * size
         stalled = new_tail >= tail
         tail = new_tail
         if stalled:
-            r_hi, r_lo = _residual(y, t_s, b_hi, b_lo, bits_b)
             break
     # the fixed point's own error: the residual is right to about 8 eps 2^-(2 bits) of the
     # terms of y - T b, and g = T'W r to the same relative to its terms; X0 carries that
     # into b (balanced columns: |T| <= 1, so ||T_j|| <= sqrt(n))
     row = float(np.max(np.abs(y))) + float(np.sum(np.abs(b_hi)))
-    err_r = 8 * EPS * 2.0 ** (-2 * min(bits, bits_b)) * row  # per row
+    err_r = 8 * EPS * 2.0 ** (-2 * min(bits, bits_b)) * row + updated  # per row
     wmax = 1.0 if w is None else float(np.max(w))
     fixed = norm_x * n * wmax * (err_r + 8 * EPS * 2.0 ** (-2 * min(bits, bits_u)) * float(
         np.max(np.abs(r_hi))))
