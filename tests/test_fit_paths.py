@@ -139,3 +139,54 @@ def test_refined_path_matches_exact_arithmetic():
     assert res.method == "refined"
     scores = _digits(res, _exact_reference(y, x, 2))
     assert min(scores.values()) >= 14.0, scores
+
+
+def test_degree_scan_folds_with_weights_and_log_match_a_brute_force_loop():
+    """Cross-validated RMSE of a weighted log-y scan equals an independent k-fold loop:
+    numpy.linalg.lstsq on sqrt(w)-scaled powers of x (centered for conditioning), ln y,
+    predictions exp(fit) times Duan's smearing mean(exp(residuals)) of the training fold."""
+    from xlbridge import scan_degrees
+
+    rng = np.random.default_rng(31)
+    n, folds = 60, 6
+    x = rng.uniform(10, 90, n)
+    y = np.exp(1 + 0.03 * x - 1e-4 * x**2 + rng.normal(0, 0.05, n))
+    w = rng.uniform(0.5, 2.0, n)
+    scan = scan_degrees(y, x, 3, folds=folds, weights=w, log=True)
+    fold_of = np.arange(n) % folds
+    for row in scan.rows:
+        d = row.degree
+        mse, size = [], []
+        for k in range(folds):
+            tr, te = fold_of != k, fold_of == k
+            xc = x - x[tr].mean()
+            a = np.column_stack([xc**j for j in range(d + 1)])
+            sw = np.sqrt(w[tr])
+            b = np.linalg.lstsq(a[tr] * sw[:, None], np.log(y[tr]) * sw, rcond=None)[0]
+            smear = np.mean(np.exp(np.log(y[tr]) - a[tr] @ b))
+            err = y[te] - np.exp(a[te] @ b) * smear
+            mse.append(np.sum(w[te] * err**2) / np.sum(w[te]))
+            size.append(np.sum(w[te]))
+        cv = np.sqrt(np.sum(np.array(mse) * size) / np.sum(size))
+        assert row.cv_rmse == pytest.approx(cv, rel=1e-9)
+
+
+def test_small_products_run_on_one_blas_thread():
+    """Inside the engine's thread control a small product sees one BLAS thread and a large
+    one the library's own count (as reported by threadpoolctl for numpy's BLAS, the one
+    the engine multiplies with; scipy may load a second copy that the engine never uses)."""
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+    from xlbridge.engine import threads
+
+    def blas_threads_now() -> int:
+        info = [i for i in threadpoolctl.threadpool_info() if i["user_api"] == "blas"]
+        info = [i for i in info if "numpy" in i["filepath"]] or info
+        return max(i["num_threads"] for i in info) if info else 1
+
+    before = blas_threads_now()
+    with threads.blas_threads(1_000):
+        assert blas_threads_now() == 1
+        with threads.blas_threads(threads.LARGE_PRODUCT):
+            assert blas_threads_now() == before
+        assert blas_threads_now() == 1
+    assert blas_threads_now() == before
