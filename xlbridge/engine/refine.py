@@ -166,7 +166,7 @@ class Refined:
     inv_lo: np.ndarray
     resid_hi: np.ndarray  # y - T b (unweighted)
     resid_lo: np.ndarray
-    sse: float  # weighted sum of squared residuals
+    sse: float  # weighted sum of squared residuals, to a few units in the last place
     err_resid: float  # estimated error of each residual (absolute, at most)
     err_b: np.ndarray  # estimated absolute error of each coefficient (b_hi + b_lo)
     err_inv: np.ndarray  # estimated absolute error of each entry of the inverse
@@ -276,11 +276,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     fixed = norm_x * n * wmax * (err_r + 8 * EPS * 2.0 ** (-2 * min(bits, bits_u)) * float(
         np.max(np.abs(r_hi))))
     err_b = np.full(p, tail + fixed) * d  # back on the scaled (unbalanced) columns
-    if w is None:
-        sq = r_hi * r_hi + 2 * r_hi * r_lo
-    else:
-        sq = w * (r_hi * r_hi + 2 * r_hi * r_lo)
-    sse = float(np.sum(sq))  # pairwise: relative error below (log2 n + 3) eps
+    sse = weighted_sum_squares(r_hi, r_lo, w)
     dd2 = np.outer(d, d)
     return Refined(b_hi * d, b_lo * d, inv_hi * dd2, inv_lo * dd2, r_hi, r_lo, sse, err_r,
                    err_b, err_inv * dd2, steps)
@@ -345,3 +341,45 @@ def map_pair(m_hi: np.ndarray, m_lo: np.ndarray, v_hi: np.ndarray, v_lo) -> tupl
     ph, pl = sliced_product(slices(m_hi * rs_b, m_lo * rs_b, bits), slices(v_hi, v_lo, bits_v))
     scale = rs if ph.ndim == 1 else rs[:, None]
     return ph / scale, pl / scale
+
+
+def accurate_sum(hi: np.ndarray, lo: np.ndarray | float = 0.0) -> float:
+    """sum(hi + lo) to a few units in the last place: hi is cut into two slices whose sums
+    are exact (n terms of at most 52 - log2 n bits on a common grid); the leftover, below
+    2^-2(52 - log2 n) of max|hi|, and lo are summed in plain double."""
+    n = int(np.size(hi))
+    if n == 0:
+        return 0.0
+    s1, s2, rest, _ = slices(hi, lo, max(1, 52 - n.bit_length()))
+    h, e = two_sum(float(np.sum(s1)), float(np.sum(s2)))
+    return float(h + (e + float(np.sum(rest))))
+
+
+def weighted_sum_squares(h: np.ndarray, lo: np.ndarray, w: np.ndarray | None) -> float:
+    """sum(w (h + lo)^2) to a few units in the last place (squares as exact products)."""
+    if w is None:
+        sq, err = two_prod(h, h)
+        err = err + 2 * h * lo
+    else:
+        wh, wl = two_prod(w, h)
+        wl = wl + w * lo
+        sq, err = two_prod(wh, h)
+        err = err + (wh * lo + wl * h)
+    return accurate_sum(sq, err)
+
+
+def total_sum_squares(y: np.ndarray, w: np.ndarray | None, centered: bool) -> float:
+    """sum(w (y - ybar)^2) (or sum(w y^2)) to a few units in the last place. The mean m is
+    a rounded double; y - m is exact as a pair, and sum(w (y - m)^2) exceeds the wanted sum
+    by W (ybar - m)^2, W = sum(w), which is subtracted (ybar - m from an accurate sum)."""
+    if not centered:
+        return weighted_sum_squares(y, np.zeros_like(y), w)
+    m = float(np.average(y, weights=w))
+    dh, dl = two_sum(y, -m)
+    total = weighted_sum_squares(dh, dl, w)
+    if w is None:
+        big_w, dev = float(len(y)), accurate_sum(dh, dl)
+    else:
+        ah, al = two_prod(w, dh)
+        big_w, dev = accurate_sum(w), accurate_sum(ah, al + w * dl)
+    return total - dev * dev / big_w

@@ -1,6 +1,8 @@
 """Accurate least squares: a centered, power-of-two-scaled basis, a backward-stable
-factorisation, an a-posteriori error bound, and exact arithmetic where the bound says the
-double-precision answer may not be right to the digits we show.
+factorisation, an a-posteriori error bound, then, only where the bound says the
+double-precision answer may not be right to the digits we show, iterative refinement in
+double-double arithmetic (refine.py) and, where even that cannot certify the answer, exact
+arithmetic (exact.py).
 
 The solve returns a ``Core``: coefficients and (X'WX)^-1 in the scaled basis (for
 predictions, which are well conditioned there), the same in raw units, the residuals, the
@@ -15,7 +17,7 @@ from fractions import Fraction
 import numpy as np
 
 from .exact import ExactFit, ExactSingular, shift_matrix
-from .refine import binomials, map_pair, raw_map_pair, refine, slice_bits
+from .refine import binomials, map_pair, raw_map_pair, refine, slice_bits, total_sum_squares
 from .terms import ModelError, ModelSpec
 from .threads import blas_threads
 
@@ -249,7 +251,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
     inv_raw = m_hi @ inv_scaled @ m_hi.T
     resid = resid_w if sw is None else resid_w / sw
     sse = float(np.sum(resid_w * resid_w))
-    sst = weighted_sst(y, w) if spec.intercept else float(z @ z)
+    sst = weighted_sst(y, w) if spec.intercept else float(np.sum(z * z))
     if not (np.isfinite(sse) and np.isfinite(sst) and np.all(np.isfinite(inv_raw))):
         raise ModelError(_too_large(y, x))
 
@@ -293,7 +295,8 @@ def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
     ih, il = map_pair(m_hi, m_lo, yh.T, yl.T)  # M (M X)' = M X M' (X symmetric)
     inv_raw = ih + il
     resid = ref.resid_hi + ref.resid_lo
-    if not (np.all(np.isfinite(beta)) and np.all(np.isfinite(inv_raw))
+    sst = total_sum_squares(y, w, spec.intercept)
+    if not (np.isfinite(sst) and np.all(np.isfinite(beta)) and np.all(np.isfinite(inv_raw))
             and np.isfinite(ref.sse)):
         return None
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -311,22 +314,20 @@ def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
         wmax = 1.0 if w is None else float(np.max(w))
         d_sse = wmax * (2 * ref.err_resid * float(np.sum(np.abs(resid)))
                         + n * ref.err_resid**2)
-        rel_sse = (d_sse / ref.sse if ref.sse > 0 else np.inf) + (np.log2(max(n, 2)) + 20) * EPS
-        sst = core.sst
-        sse = ref.sse
-        rel_r2 = rel_sse * sse / sst / max(1 - sse / sst, 1e-300) if sst > 0 else 0.0
+        rel_sse = (d_sse / ref.sse if ref.sse > 0 else np.inf) + 4 * EPS  # accurate sum
+        rel_r2 = _r2_error(rel_sse, 4 * EPS, ref.sse, sst)
     worst = np.nanmax(np.concatenate([rel_beta, (rel_inv + rel_sse) / 2, [rel_sse / 2, rel_r2]]))
     bound = float(worst) if np.isfinite(worst) else np.inf
     return Core(b=ref.b_hi, inv_scaled=ref.inv_hi, beta=beta, inv_raw=inv_raw,
-                residuals=resid, leverage=core.leverage, sse=ref.sse, sst=core.sst,
+                residuals=resid, leverage=core.leverage, sse=ref.sse, sst=sst,
                 cond=core.cond, method="refined", error_bound=bound, basis=basis,
                 gram=core.gram)
 
 
 def weighted_sst(y: np.ndarray, w: np.ndarray | None) -> float:
-    """Total sum of squares about the (weighted) mean, two-pass."""
+    """Total sum of squares about the (weighted) mean, two-pass, summed pairwise."""
     d = y - np.average(y, weights=w)
-    return float(d @ d) if w is None else float(np.sum(w * d * d))
+    return float(np.sum(d * d)) if w is None else float(np.sum(w * d * d))
 
 
 #: Rounding errors of the fitted values are independent of the residuals' signs once the
@@ -371,9 +372,20 @@ def _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse
         cross = RSS_FACTOR * 2 * float(np.sqrt(np.sum((resid_w * u) ** 2)))
         rel_sse = ((cross + float(np.sum(u * u))) / sse if sse > 0 else np.inf) + (
             np.log2(max(n, 2)) + 20) * EPS
-        rel_r2 = rel_sse * sse / sst / max(1 - sse / sst, 1e-300) if sst > 0 else 0.0
+        # SST and SSE (pairwise sums) are off by at most (log2 n + 20) eps relative
+        rel_r2 = _r2_error(rel_sse, (np.log2(max(n, 2)) + 20) * EPS, sse, sst)
     worst = np.nanmax(np.concatenate([rel_beta, (rel_inv + rel_sse) / 2, [rel_sse / 2, rel_r2]]))
     return float(worst) if np.isfinite(worst) else np.inf
+
+
+def _r2_error(rel_sse: float, rel_sst: float, sse: float, sst: float) -> float:
+    """Relative error of R^2 = 1 - SSE/SST from the relative errors of SSE and SST. Below
+    R^2 = 1/2 the subtraction itself limits the relative digits of R^2 whichever path
+    computed SSE (every path reports 1 - SSE/SST from doubles), so R^2 is held to twice its
+    absolute error there."""
+    if not sst > 0:
+        return 0.0
+    return (rel_sse + rel_sst) * (sse / sst) / max(1 - sse / sst, 0.5)
 
 
 def _too_large(y: np.ndarray, x: np.ndarray) -> str:
