@@ -34,6 +34,24 @@ def test_typical_fits_do_not_take_the_exact_path(case):
     assert fit(y, x, model).method in ("qr", "cholesky", "refined")
 
 
+@pytest.mark.parametrize("n", [30, 200, 3_000])
+def test_weak_relationships_do_not_take_the_exact_path(n):
+    """Invented noise around a nearly flat line (R^2 of 1e-5 to 0.05) at degrees 1-3 is
+    certified without the exact refit; R^2 still agrees with statsmodels' OLS to 1e-12
+    relative where its absolute value permits (reference: statsmodels)."""
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(n)
+    x = rng.uniform(0, 10, n)
+    y = 5 + 0.01 * x + rng.normal(0, 1, n)
+    for d in (1, 2, 3):
+        res = fit(y, x, d)
+        assert res.method != "exact"
+        ref = sm.OLS(y - y.mean(), np.column_stack([(x - x.mean()) ** j
+                                                    for j in range(d + 1)])).fit()
+        assert res.stats.r2 == pytest.approx(ref.rsquared, rel=1e-10, abs=1e-13)
+
+
 def _exact_reference(y, x, degree, w=None):
     """Estimates, standard errors, residual SD and R^2 of a polynomial fit with intercept,
     exactly: normal equations of the raw powers x^0..x^d in Fractions, Gauss-Jordan."""
