@@ -44,6 +44,15 @@ def best_of(fn, repeat: int, *args) -> float:
     return min(times)
 
 
+def paired(fns, repeat: int, *args) -> list[float]:
+    """Best time of each function, measured in alternation (a loaded machine drifts)."""
+    best = [float("inf")] * len(fns)
+    for _ in range(repeat):
+        for i, fn in enumerate(fns):
+            best[i] = min(best[i], best_of(fn, 1, *args))
+    return best
+
+
 def raw_design(x: np.ndarray, model) -> np.ndarray:
     x2 = x.reshape(len(x), -1)
     spec = parse_model(model, x2.shape[1], None, intercept=True)
@@ -65,16 +74,16 @@ def typical(quick: bool) -> None:
     exact = total = 0
     for label, y, x, model in typical_cases(100_000 if quick else 1_000_000):
         n = len(y)
-        repeat = 1 if n >= 1_000_000 else (3 if n >= 25_000 else 7)
+        repeat = 3 if n >= 1_000_000 else (5 if n >= 25_000 else 9)
         res = fit(y, x, model)
         total += 1
         exact += res.method == "exact"
-        t_fit = best_of(fit, repeat, y, x, model)
-        t_ne = best_of(normal_equations, repeat, y, x, model)
         extra = ""
         if n >= 1_000_000:
-            t_ls = best_of(lstsq, repeat, y, x, model)
+            t_fit, t_ne, t_ls = paired((fit, normal_equations, lstsq), repeat, y, x, model)
             extra = f"lstsq {t_ls * 1e3:8.1f} ms, fit/lstsq {t_fit / t_ls:5.2f}x"
+        else:
+            t_fit, t_ne = paired((fit, normal_equations), repeat, y, x, model)
         print(f"{label:34s} {res.method:8s} {t_fit * 1e3:9.2f} {t_ne * 1e3:8.2f} "
               f"{t_fit / t_ne:6.1f}x  {extra}")
     print(f"exact path on {exact} of {total} typical fits ({100 * exact / total:.0f}%; "
@@ -94,9 +103,11 @@ def scan(quick: bool) -> None:
                 b = normal_equations(y[tr], x[tr], d)
                 _ = raw_design(x[~tr], d) @ b
 
-    scan_degrees(y, x, top)
-    t_scan = best_of(lambda: scan_degrees(y, x, top), 1 if quick else 3)
-    t_floor = best_of(floor, 3)
+    def scan_once():
+        return scan_degrees(y, x, top)
+
+    scan_once()
+    t_scan, t_floor = paired((scan_once, floor), 1 if quick else 3)
     chosen = scan_degrees(y, x, top).chosen
     print(f"\nscan_degrees, 10,000 rows, max degree 5 (chosen {chosen}): {t_scan:.3f} s "
           f"(target <= 0.5 s); same folds by normal equations {t_floor * 1e3:.1f} ms, "
@@ -113,11 +124,16 @@ def thread_control() -> None:
         y, x = surface(n, k) if k > 1 else curve(n)
         model = "surface" if k > 1 else 3
         fit(y, x, model)
-        try:
+        def one_thread(*args):
             threads.LARGE_PRODUCT = saved
-            t_one = best_of(fit, 7, y, x, model)
+            return fit(*args)
+
+        def library_threads(*args):
             threads.LARGE_PRODUCT = 0  # every product on the library's threads
-            t_all = best_of(fit, 7, y, x, model)
+            return fit(*args)
+
+        try:
+            t_one, t_all = paired((one_thread, library_threads), 9, y, x, model)
         finally:
             threads.LARGE_PRODUCT = saved
         label = f"surface {k} predictors" if k > 1 else "degree 3"
