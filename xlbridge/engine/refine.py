@@ -7,7 +7,8 @@ everything whose rounding limits the answer in about twice the working precision
 - the design itself: t = (x - c) / s is held as a pair of doubles (x - c by an error-free
   sum; dividing by the power of two s is exact), and each monomial column as a pair;
 - the residual r = y - T b and the normal-equation right-hand side g = T'W r;
-- the Gram matrix G and the residual I - G X of its inverse.
+- the Gram matrix G and the residual I - G X of its inverse;
+- the sums of squares SSE and SST (to a few units in the last place).
 
 The long sums are matrix products of *slices*: each operand is cut into pieces of ``bits``
 significant bits on a common grid (an error-free split, one addition and one subtraction of
@@ -177,7 +178,8 @@ def refine(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, centers: np.ndarr
            scales: np.ndarray, powers: tuple[tuple[int, ...], ...], b0: np.ndarray,
            inv0: np.ndarray) -> Refined | None:
     """Refine ``b0`` and ``inv0`` (coefficients and Gram inverse on the scaled basis).
-    Returns None when the numbers are out of the range where the splits are exact."""
+    Returns None when the numbers are out of the range where the splits are exact, or when
+    ``inv0`` is too poor a preconditioner to converge (||I - G X0|| >= 1/2)."""
     with np.errstate(over="ignore", invalid="ignore"):
         out = _refine(x, y, w, centers, scales, powers, b0, inv0)
     return out
