@@ -362,15 +362,18 @@ def _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse
         rowsum = cabs.sum(axis=1)
         sd = np.sqrt(np.diag(inv_n))
         bn1 = float(np.sum(np.abs(bn)))
-        db = eta * (rnorm * rowsum + sd * (bn1 + float(np.linalg.norm(z)))) / norms
+        db = eta * (rnorm * rowsum + sd * (bn1 + float(np.sqrt(z @ z)))) / norms
         mabs = np.abs(m_hi)
         rel_beta = (mabs @ db) / np.abs(beta)
         ms = mabs / norms
         d_inv = 2 * eta * (ms @ sd) * (ms @ rowsum)
         rel_inv = d_inv / np.abs(np.diag(inv_raw))
-        u = (p + 1) * EPS * (np.abs(z) + amax * bn1)
-        cross = RSS_FACTOR * 2 * float(np.sqrt(np.sum((resid_w * u) ** 2)))
-        rel_sse = ((cross + float(np.sum(u * u))) / sse if sse > 0 else np.inf) + (
+        a = np.abs(z)
+        a += amax * bn1  # u = (p + 1) eps a
+        ra = resid_w * a
+        gam = (p + 1) * EPS
+        cross = RSS_FACTOR * 2 * gam * float(np.sqrt(ra @ ra))
+        rel_sse = ((cross + gam * gam * float(a @ a)) / sse if sse > 0 else np.inf) + (
             np.log2(max(n, 2)) + 20) * EPS
         # SST and SSE (pairwise sums) are off by at most (log2 n + 20) eps relative
         rel_r2 = _r2_error(rel_sse, (np.log2(max(n, 2)) + 20) * EPS, sse, sst)
