@@ -186,7 +186,7 @@ class FitResult:
     x_min: np.ndarray
     x_max: np.ndarray
     cov: np.ndarray  # raw-unit covariance of the estimates
-    method: str
+    method: str  # solve path: "qr", "cholesky", "refined" or "exact" (see solve.solve)
     response: str
     basis: Basis
     scaled_coef: np.ndarray

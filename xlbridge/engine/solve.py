@@ -1,6 +1,8 @@
 """Accurate least squares: a centered, power-of-two-scaled basis, a backward-stable
-factorisation, an a-posteriori error bound, and exact arithmetic where the bound says the
-double-precision answer may not be right to the digits we show.
+factorisation, an a-posteriori error bound, then, only where the bound says the
+double-precision answer may not be right to the digits we show, iterative refinement in
+double-double arithmetic (refine.py) and, where even that cannot certify the answer, exact
+arithmetic (exact.py).
 
 The solve returns a ``Core``: coefficients and (X'WX)^-1 in the scaled basis (for
 predictions, which are well conditioned there), the same in raw units, the residuals, the
@@ -11,13 +13,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from fractions import Fraction
-from math import comb
 
 import numpy as np
 
 from .errors import ModelError, ModelErrorKind, distinct_shortage
 from .exact import ExactFit, ExactSingular, shift_matrix
+from .refine import binomials, map_pair, raw_map_pair, refine, slice_bits, total_sum_squares
 from .terms import ModelSpec
+from .threads import blas_threads
 
 EPS = 2.0**-53
 #: A term is aliased when its column, after scaling to unit length, lies within this
@@ -30,6 +33,11 @@ ACCEPT_ERROR = 1e-14
 #: Exact arithmetic is used while rows x columns^2 stays below this many integer products
 #: (about 0.3 s here); larger, badly conditioned fits keep the refined double answer and a note.
 EXACT_BUDGET = 400_000
+#: Refinement in double-double arithmetic is tried while the design has at most this many
+#: elements (rows x columns; about 50 passes over the design, some 30 ms at the limit);
+#: larger fits keep the double-precision answer and its estimate, as the exact refit does
+#: above EXACT_BUDGET.
+REFINE_BUDGET = 1_000_000
 #: Below this many rows the QR factorisation is used; above it, Cholesky on the scaled
 #: basis with one corrected semi-normal step (as accurate when the basis is well conditioned).
 CHOLESKY_MIN_ROWS = 20_000
@@ -66,15 +74,17 @@ class Basis:
     def raw_in_scaled(self) -> np.ndarray:
         """Column m holds raw monomial x^m written on the scaled columns t^e: from
         x_j = s_j t_j + c_j, entry [e, m] = prod_j binom(m_j, e_j) s_j^e_j c_j^(m_j - e_j)."""
-        p = len(self.powers)
-        out = np.zeros((p, p))
-        for i, e in enumerate(self.powers):
-            for k, m in enumerate(self.powers):
-                if all(ej <= mj for ej, mj in zip(e, m)):
-                    v = 1.0
-                    for ej, mj, s, c in zip(e, m, self.scales, self.centers):
-                        v *= comb(mj, ej) * float(s) ** ej * float(c) ** (mj - ej)
-                    out[i, k] = v
+        pw = np.array(self.powers, dtype=int).reshape(len(self.powers), -1)
+        p = len(pw)
+        out = np.ones((p, p))
+        for j in range(pw.shape[1]):
+            e = pw[:, j]
+            diff = e[None, :] - e[:, None]  # row e, column m: m_j - e_j
+            ok = diff >= 0
+            d = np.where(ok, diff, 0)
+            binom = binomials(int(e.max()) if p else 0)[e[None, :], np.where(ok, e[:, None], 0)]
+            factor = binom * float(self.scales[j]) ** e[:, None] * float(self.centers[j]) ** d
+            out *= np.where(ok, factor, 0.0)
         return out
 
 
@@ -137,7 +147,7 @@ class Core:
     sse: float
     sst: float  # about the weighted mean with an intercept, about zero without
     cond: float  # 2-norm condition number of the unit-column scaled design
-    method: str  # "qr", "cholesky" or "exact"
+    method: str  # "qr", "cholesky", "refined" or "exact"
     error_bound: float  # estimated relative error of the double-precision solve
     basis: Basis
     gram: np.ndarray  # T'WT, scaled basis
@@ -168,7 +178,17 @@ def _leverage(q_source: np.ndarray, rinv: np.ndarray) -> np.ndarray:
 
 
 def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Core:
-    """Weighted least squares of y on the model's columns; raises ModelError if singular."""
+    """Weighted least squares of y on the model's columns; raises ModelError if singular.
+
+    ``Core.method`` names the path that produced the answer: "qr" or "cholesky" (double
+    precision, accepted by its error estimate), "refined" (iterative refinement in
+    double-double arithmetic, accepted by its own estimate) or "exact" (the integer refit,
+    the last resort when neither estimate is below ACCEPT_ERROR)."""
+    with blas_threads(0):  # one thread, except around the factorisation below
+        return _solve(x, y, w, spec)
+
+
+def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Core:
     n = len(y)
     basis = choose_basis(x, w, spec)
     an = basis.design(x)  # becomes the weighted, unit-column design in place
@@ -186,7 +206,9 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     r_fac = None
     if n >= CHOLESKY_MIN_ROWS:
         try:
-            r_fac = np.linalg.cholesky(an.T @ an).T
+            with blas_threads(n * p * p):
+                gram_n = an.T @ an
+            r_fac = np.linalg.cholesky(gram_n).T
         except np.linalg.LinAlgError:
             r_fac = None
         if r_fac is not None and np.min(np.abs(np.diag(r_fac))) > CHOLESKY_MIN_DIAG:
@@ -194,7 +216,8 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
         else:
             r_fac = None
     if r_fac is None:
-        q, r_fac = np.linalg.qr(an)
+        with blas_threads(n * p * p):
+            q, r_fac = np.linalg.qr(an)
     diag = np.abs(np.diag(r_fac))
     for j in range(p):
         if not diag[j] > ALIAS_TOL:
@@ -210,6 +233,8 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
         bn = bn + inv_n @ (an.T @ (z - an @ bn))  # corrected semi-normal equations
         h = _leverage(an, rinv)
     resid_w = z - an @ bn
+    # largest |entry| of the unit-column design, for the residual's rounding estimate
+    amax = float(max(np.max(an), -np.min(an))) if an.size else 0.0
     del an
     b = bn / norms
     if not (np.all(np.isfinite(b)) and np.all(np.isfinite(resid_w))):
@@ -220,58 +245,149 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -
     sv = np.linalg.svd(r_fac, compute_uv=False)
     cond = float(sv[0] / sv[-1])
 
-    raw = basis.raw_map()
-    try:
-        beta = np.array([float(sum(m * Fraction(float(v)) for m, v in zip(row, b)))
-                         for row in raw])
-    except OverflowError:
-        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE) from None
-    mf = np.array([[float(v) for v in row] for row in raw])
-    inv_raw = mf @ inv_scaled @ mf.T
+    m_hi, m_lo = raw_map_pair(basis.centers, basis.scales, basis.powers)
+    beta = _raw_coef(m_hi, m_lo, b, np.zeros(p), y, x)
+    inv_raw = m_hi @ inv_scaled @ m_hi.T
     resid = resid_w if sw is None else resid_w / sw
-    sse = float(resid_w @ resid_w)
-    sst = weighted_sst(y, w) if spec.intercept else float(z @ z)
-    if not (np.isfinite(sse) and np.isfinite(sst)):
+    sse = float(np.sum(resid_w * resid_w))
+    sst = weighted_sst(y, w) if spec.intercept else float(np.sum(z * z))
+    if not (np.isfinite(sse) and np.isfinite(sst) and np.all(np.isfinite(inv_raw))):
         raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
 
-    fitn = float(np.linalg.norm(z - resid_w))
-    bound = _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst)
+    bound = _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
+                         sst)
     core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
                 gram)
-    if bound > ACCEPT_ERROR and n * p * p <= EXACT_BUDGET:
-        core = _exact(x, y, w, spec, basis, core)
+    if bound <= ACCEPT_ERROR:
+        return core
+    refined = _refined(x, y, w, spec, core, m_hi, m_lo) if n * p <= REFINE_BUDGET else None
+    if refined is not None and refined.error_bound <= ACCEPT_ERROR:
+        return refined
+    if n * p * p <= EXACT_BUDGET:
+        return _exact(x, y, w, spec, basis, core)
+    if refined is not None and refined.error_bound < core.error_bound:
+        return refined
     return core
 
 
+def _raw_coef(m_hi, m_lo, b_hi, b_lo, y, x) -> np.ndarray:
+    """Raw-unit coefficients M (b_hi + b_lo), rounded once from double-double."""
+    hi, lo = map_pair(m_hi, m_lo, b_hi, b_lo)
+    beta = hi + lo
+    if not np.all(np.isfinite(beta)):
+        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
+    return beta
+
+
+def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
+    """The fit refined in double-double arithmetic, with its own error estimate (see
+    refine.py), or None where refinement does not apply (numbers out of range)."""
+    basis = core.basis
+    ref = refine(x, y, w, basis.centers, basis.scales, basis.powers, core.b,
+                 core.inv_scaled)
+    if ref is None:
+        return None
+    n, p = len(y), len(basis.powers)
+    bh, bl = map_pair(m_hi, m_lo, ref.b_hi, ref.b_lo)
+    beta = bh + bl
+    yh, yl = map_pair(m_hi, m_lo, ref.inv_hi, ref.inv_lo)  # M X
+    ih, il = map_pair(m_hi, m_lo, yh.T, yl.T)  # M (M X)' = M X M' (X symmetric)
+    inv_raw = ih + il
+    resid = ref.resid_hi + ref.resid_lo
+    sst = total_sum_squares(y, w, spec.intercept)
+    if not (np.isfinite(sst) and np.all(np.isfinite(beta)) and np.all(np.isfinite(inv_raw))
+            and np.isfinite(ref.sse)):
+        return None
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        mabs = np.abs(m_hi)
+        # the double-double products with M keep about 2 slice_bits(p) + 53 bits of each
+        # row's largest term; their leftover is charged here on top of the refined errors
+        tiny = 8 * EPS * 2.0 ** (-2 * slice_bits(p))
+        rowmax = mabs.max(axis=1)
+        rel_beta = (mabs @ ref.err_b + tiny * rowmax * float(np.sum(np.abs(ref.b_hi))))
+        rel_beta = rel_beta / np.abs(beta)
+        # |M| E |M|' with E the entrywise error of the refined inverse, plus the leftover of
+        # the double-double products with M, charged on |M| |X| |M|'
+        spread = np.einsum("ij,jk,ik->i", mabs, ref.err_inv + tiny * np.abs(ref.inv_hi), mabs)
+        rel_inv = spread / np.abs(np.diag(inv_raw))
+        wmax = 1.0 if w is None else float(np.max(w))
+        d_sse = wmax * (2 * ref.err_resid * float(np.sum(np.abs(resid)))
+                        + n * ref.err_resid**2)
+        rel_sse = (d_sse / ref.sse if ref.sse > 0 else np.inf) + 4 * EPS  # accurate sum
+        rel_r2 = _r2_error(rel_sse, 4 * EPS, ref.sse, sst)
+    worst = np.nanmax(np.concatenate([rel_beta, (rel_inv + rel_sse) / 2, [rel_sse / 2, rel_r2]]))
+    bound = float(worst) if np.isfinite(worst) else np.inf
+    return Core(b=ref.b_hi, inv_scaled=ref.inv_hi, beta=beta, inv_raw=inv_raw,
+                residuals=resid, leverage=core.leverage, sse=ref.sse, sst=sst,
+                cond=core.cond, method="refined", error_bound=bound, basis=basis,
+                gram=core.gram)
+
+
 def weighted_sst(y: np.ndarray, w: np.ndarray | None) -> float:
-    """Total sum of squares about the (weighted) mean, two-pass."""
+    """Total sum of squares about the (weighted) mean, two-pass, summed pairwise."""
     d = y - np.average(y, weights=w)
-    return float(d @ d) if w is None else float(np.sum(w * d * d))
+    return float(np.sum(d * d)) if w is None else float(np.sum(w * d * d))
 
 
-def _error_bound(cond, p, bn, norms, mf, beta, inv_n, inv_raw, z, fitn, sse, sst) -> float:
-    """First-order estimate of the worst relative error among the reported quantities.
+#: Rounding errors of the fitted values are independent of the residuals' signs once the
+#: residuals are well above the rounding level, so their sum against the residuals grows
+#: like a root-sum-square; this many of those (a tail probability far below 1e-12 under the
+#: usual model of rounding as independent, mean-zero errors) bound it.
+RSS_FACTOR = 8.0
 
-    Least-squares perturbation theory for a backward-stable solve (normwise, on the unit-
-    column basis), carried to each raw-unit coefficient and variance through the basis
-    change, whose cancellation can cost digits the basis itself does not lose.
+
+def _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
+                 sst) -> float:
+    """First-order estimate of the worst relative error among the reported quantities of a
+    double-precision solve on the unit-column basis A (weighted response z).
+
+    Coefficients: a backward-stable QR (or the corrected semi-normal equations on this well
+    conditioned basis) solves a problem with columns perturbed by ||dA_j|| <= eta (columnwise
+    backward error; eta = p sqrt(p) eps, with the design's own rounding). To first order
+    db = (A'A)^-1 dA'r - A^+ (dA b) + A^+ dz, so |db_j| <= eta (||r|| (|C| 1)_j +
+    sqrt(C_jj) (||b||_1 + ||z||)) with C = (A'A)^-1 (row j of A^+ has norm sqrt(C_jj)).
+    That is carried to raw units through |M|, whose cancellation can cost digits.
+    Inverse: dC = -C (dA'A + A'dA) C gives |dC_jk| <= eta (sqrt(C_jj) (|C| 1)_k + sqrt(C_kk)
+    (|C| 1)_j), carried through |M| . |M|'. Residual sum of squares: each residual is off by
+    at most u_i = (p + 1) eps (|z_i| + max|A| ||b||_1); against the residuals that sums as a
+    root-sum-square (RSS_FACTOR), plus the always-positive sum of u_i^2, plus the pairwise
+    summation's (log2 n + 20) eps.
     """
-    rnorm = np.sqrt(sse)
-    tan = rnorm / fitn if fitn > 0 else np.inf
-    e_b = EPS * (p * cond + cond * cond * tan) * np.sqrt(p)
-    db = e_b * np.linalg.norm(bn) / norms  # absolute error per scaled coefficient
-    with np.errstate(divide="ignore", invalid="ignore"):
-        rel_beta = (np.abs(mf) @ db) / np.abs(beta)
-        e_c = EPS * p * cond * cond * np.sqrt(p)
-        cabs = np.abs(mf) / norms
-        d_inv = e_c * np.max(np.abs(inv_n)) * np.sum(cabs, axis=1) ** 2
-        rel_se = d_inv / np.abs(np.diag(inv_raw)) / 2
-        # residual sum of squares: rounding in y - fitted, relative to the residual itself
-        scale = np.sqrt(max(float(z @ z), 0.0))
-        rel_sse = 2 * EPS * p * scale / rnorm if rnorm > 0 else np.inf
-        rel_r2 = rel_sse * sse / sst / max(1 - sse / sst, 1e-300) if sst > 0 else 0.0
-    worst = np.nanmax(np.concatenate([rel_beta, rel_se, [rel_sse / 2, rel_r2]]))
+    n = len(z)
+    eta = p * np.sqrt(p) * EPS
+    rnorm = float(np.sqrt(sse))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        cabs = np.abs(inv_n)
+        rowsum = cabs.sum(axis=1)
+        sd = np.sqrt(np.diag(inv_n))
+        bn1 = float(np.sum(np.abs(bn)))
+        db = eta * (rnorm * rowsum + sd * (bn1 + float(np.sqrt(z @ z)))) / norms
+        mabs = np.abs(m_hi)
+        rel_beta = (mabs @ db) / np.abs(beta)
+        ms = mabs / norms
+        d_inv = 2 * eta * (ms @ sd) * (ms @ rowsum)
+        rel_inv = d_inv / np.abs(np.diag(inv_raw))
+        a = np.abs(z)
+        a += amax * bn1  # u = (p + 1) eps a
+        ra = resid_w * a
+        gam = (p + 1) * EPS
+        cross = RSS_FACTOR * 2 * gam * float(np.sqrt(ra @ ra))
+        rel_sse = ((cross + gam * gam * float(a @ a)) / sse if sse > 0 else np.inf) + (
+            np.log2(max(n, 2)) + 20) * EPS
+        # SST and SSE (pairwise sums) are off by at most (log2 n + 20) eps relative
+        rel_r2 = _r2_error(rel_sse, (np.log2(max(n, 2)) + 20) * EPS, sse, sst)
+    worst = np.nanmax(np.concatenate([rel_beta, (rel_inv + rel_sse) / 2, [rel_sse / 2, rel_r2]]))
     return float(worst) if np.isfinite(worst) else np.inf
+
+
+def _r2_error(rel_sse: float, rel_sst: float, sse: float, sst: float) -> float:
+    """Relative error of R^2 = 1 - SSE/SST from the relative errors of SSE and SST. Below
+    R^2 = 1/2 the subtraction itself limits the relative digits of R^2 whichever path
+    computed SSE (every path reports 1 - SSE/SST from doubles), so R^2 is held to twice its
+    absolute error there."""
+    if not sst > 0:
+        return 0.0
+    return (rel_sse + rel_sst) * (sse / sst) / max(1 - sse / sst, 0.5)
 
 
 def _too_large(y: np.ndarray, x: np.ndarray) -> str:

@@ -1,0 +1,390 @@
+"""Iterative refinement of a least-squares fit in double-double arithmetic.
+
+The double-precision solve gives coefficients ``b`` and an approximate inverse ``X`` of the
+Gram matrix G = T'WT on the scaled basis T. Refinement keeps the same basis but evaluates
+everything whose rounding limits the answer in about twice the working precision:
+
+- the design itself: t = (x - c) / s is held as a pair of doubles (x - c by an error-free
+  sum; dividing by the power of two s is exact), and each monomial column as a pair;
+- the residual r = y - T b and the normal-equation right-hand side g = T'W r;
+- the Gram matrix G and the residual I - G X of its inverse;
+- the sums of squares SSE and SST (to a few units in the last place).
+
+The long sums are matrix products of *slices*: each operand is cut into pieces of ``bits``
+significant bits on a common grid (an error-free split, one addition and one subtraction of
+a large constant), so that a product of two pieces summed over m terms stays below 2^53 and
+the BLAS product is exact whatever its order of summation. The few small leftover terms are
+formed in plain double, where their rounding is below 2^-(2 bits + 53) of the whole.
+
+With an accurate g, the step b <- b + X g converges to the least-squares solution of the
+data as stored (not merely to a solution as accurate as the double-precision one), at the
+rate ||I - X G|| per step, which is itself measured here.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import comb
+
+import numpy as np
+
+EPS = 2.0**-53
+_SPLITTER = 134217729.0  # 2**27 + 1: Dekker's split of a double into two 26-bit halves
+#: Refinement steps at most; each normally gains about 14 digits on the scaled basis.
+MAX_STEPS = 4
+
+
+def two_sum(a, b):
+    """s + e == a + b exactly, s = fl(a + b) (Knuth)."""
+    s = a + b
+    bb = s - a
+    return s, (a - (s - bb)) + (b - bb)
+
+
+def _split(a):
+    c = _SPLITTER * a
+    hi = c - (c - a)
+    return hi, a - hi
+
+
+def two_prod(a, b):
+    """p + e == a * b exactly, p = fl(a * b) (Dekker; no overflow in the split assumed)."""
+    p = a * b
+    ah, al = _split(a)
+    bh, bl = _split(b)
+    return p, ((ah * bh - p) + ah * bl + al * bh) + al * bl
+
+
+def dd_mul(ah, al, bh, bl):
+    """(ah + al) * (bh + bl) as a normalised pair, relative error about 2^-104."""
+    p, e = two_prod(ah, bh)
+    e = e + (ah * bl + al * bh)
+    s = p + e
+    return s, e - (s - p)
+
+
+def dd_add(ah, al, bh, bl):
+    """(ah + al) + (bh + bl) as a normalised pair."""
+    s, e = two_sum(ah, bh)
+    e = e + (al + bl)
+    h = s + e
+    return h, e - (h - s)
+
+
+def slice_bits(m: int) -> int:
+    """Bits per slice so that m products of two slices sum exactly: 2 bits + log2 m <= 52."""
+    return max(1, (52 - int(m).bit_length()) // 2)
+
+
+def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int) -> list[np.ndarray]:
+    """[S1, S2, R, S1 + S2] with hi + lo == S1 + S2 + R up to the rounding of R (below
+    2^-(2 bits) of max|hi|, so R's own rounding is under 2^-(2 bits + 53) of it). S1 and S2
+    are integer multiples of 2^(mu - bits) and 2^(mu - 2 bits) with |S_k| <= 2^mu, mu from
+    max|hi|; their sum (kept for reuse) is exact."""
+    top = float(max(np.max(hi), -np.min(hi))) if np.size(hi) else 0.0
+    if top == 0.0:
+        zero = np.zeros_like(hi)
+        return [zero, zero, zero + lo, zero]
+    mu = int(np.frexp(top)[1])  # top < 2^mu
+    parts = []
+    rest = hi
+    for k in (1, 2):
+        # sigma in [2^(tau-1), 2^tau) with ulp(sigma) = 2^(mu - k bits): rest + sigma rounds
+        # rest to that grid (|rest| <= 2^(tau - 2)) and subtracting sigma again is exact
+        sigma = np.ldexp(0.75, mu - k * bits + 53)
+        q = (rest + sigma) - sigma
+        rest = rest - q  # exact: q is rest rounded to a coarser grid
+        parts.append(q)
+    parts.append(rest + lo)
+    parts.append(parts[0] + parts[1])
+    return parts
+
+
+def _accumulate(exact: list[np.ndarray], rest: np.ndarray):
+    """Sum of exactly computed arrays plus a small inexact one, as a normalised pair."""
+    s = exact[0]
+    e = np.zeros_like(s)
+    for term in exact[1:]:
+        s, err = two_sum(s, term)
+        e = e + err
+    e = e + rest
+    h = s + e
+    return h, e - (h - s)
+
+
+def sliced_product(a: list[np.ndarray], b: list[np.ndarray]):
+    """a @ b for sliced operands (see ``slices``) as a pair (hi, lo): S1 @ S1, S1 @ S2 and
+    S2 @ S1 are exact and summed without error; S2 @ S2 (below 2^-(bits_a + bits_b) of the
+    whole) and the remainder terms are plain double, their rounding below 2^-(bits_a +
+    bits_b + 53) of the whole."""
+    a1, a2, ar, a12 = a
+    b1, b2, br, b12 = b
+    rest = a2 @ b2 + a12 @ br + ar @ (b12 + br)
+    return _accumulate([a1 @ b1, a1 @ b2, a2 @ b1], rest)
+
+
+def design_pair(x: np.ndarray, centers: np.ndarray, scales: np.ndarray,
+                powers: tuple[tuple[int, ...], ...]) -> tuple[np.ndarray, np.ndarray]:
+    """The scaled monomial design as a pair (hi, lo) of n x p arrays, each column correct
+    to about 2^-104 relative (x - c by an error-free sum, exact power-of-two scaling, one
+    double-double product per column)."""
+    n, k = x.shape
+    th, tl = [], []
+    for j in range(k):
+        h, lo = two_sum(x[:, j], -float(centers[j]))
+        th.append(h / scales[j])
+        tl.append(lo / scales[j])
+    p = len(powers)
+    hi = np.empty((n, p), order="F")
+    lo = np.empty((n, p), order="F")
+    done: dict[tuple[int, ...], int] = {}
+    for i, q in enumerate(powers):
+        if not any(q):
+            hi[:, i], lo[:, i] = 1.0, 0.0
+        else:
+            j = next(j for j, e in enumerate(q) if e)
+            parent = q[:j] + (q[j] - 1,) + q[j + 1:]
+            if not any(parent):
+                hi[:, i], lo[:, i] = th[j], tl[j]
+            else:
+                if parent not in done:  # a parent outside the model: build it on the side
+                    ph, pl = design_pair(x, centers, scales, (parent,))
+                    ph, pl = ph[:, 0], pl[:, 0]
+                else:
+                    ph, pl = hi[:, done[parent]], lo[:, done[parent]]
+                hi[:, i], lo[:, i] = dd_mul(ph, pl, th[j], tl[j])
+        done[q] = i
+    return hi, lo
+
+
+@dataclass(frozen=True)
+class Refined:
+    """A refined fit on the scaled basis. Pairs (hi, lo) carry about 2x double precision."""
+
+    b_hi: np.ndarray
+    b_lo: np.ndarray
+    inv_hi: np.ndarray  # (T'WT)^-1
+    inv_lo: np.ndarray
+    resid_hi: np.ndarray  # y - T b (unweighted)
+    resid_lo: np.ndarray
+    sse: float  # weighted sum of squared residuals, to a few units in the last place
+    err_resid: float  # estimated error of each residual (absolute, at most)
+    err_b: np.ndarray  # estimated absolute error of each coefficient (b_hi + b_lo)
+    err_inv: np.ndarray  # estimated absolute error of each entry of the inverse
+    steps: int
+
+
+def refine(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, centers: np.ndarray,
+           scales: np.ndarray, powers: tuple[tuple[int, ...], ...], b0: np.ndarray,
+           inv0: np.ndarray) -> Refined | None:
+    """Refine ``b0`` and ``inv0`` (coefficients and Gram inverse on the scaled basis).
+    Returns None when the numbers are out of the range where the splits are exact, or when
+    ``inv0`` is too poor a preconditioner to converge (||I - G X0|| >= 1/2)."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        out = _refine(x, y, w, centers, scales, powers, b0, inv0)
+    return out
+
+
+def _mirror(a: np.ndarray) -> np.ndarray:
+    """The upper triangle copied onto the lower (averaging would round each pair's hi part
+    without carrying the rounding into its lo part)."""
+    return np.triu(a) + np.triu(a, 1).T
+
+
+def _finite(*arrays) -> bool:
+    return all(np.all(np.isfinite(a)) for a in arrays)
+
+
+def _refine(x, y, w, centers, scales, powers, b0, inv0):
+    n = len(y)
+    p = len(powers)
+    th, tl = design_pair(x, centers, scales, powers)
+    # balance columns by powers of two (exact) so that norms below are on a unit scale
+    cmax = np.max(np.abs(th), axis=0)
+    # x, y and w are finite (checked by fit); a design too large for double shows here
+    if not np.all(np.isfinite(cmax)) or np.any(cmax == 0):
+        return None
+    d = np.ldexp(1.0, -np.frexp(cmax)[1])  # column j of T times d_j has max in [1/2, 1)
+    th, tl = th * d, tl * d
+    bits = slice_bits(max(n, p))
+    t_s = slices(th, tl, bits)
+    t_sT = [part.T for part in t_s]
+    if w is None:
+        wt_s = t_s
+    else:
+        wh, wl = two_prod(w[:, None], th)
+        wt_s = slices(wh, wl + w[:, None] * tl, bits)
+    g_hi, g_lo = sliced_product(t_sT, wt_s)  # G = D T'WT D
+    g_hi, g_lo = _mirror(g_hi), _mirror(g_lo)  # exactly symmetric, upper triangle kept
+    x0 = inv0 / np.outer(d, d)  # (D T'WT D)^-1
+    x0 = (x0 + x0.T) / 2
+    # residual of the inverse, E = I - G X0, in double-double; X1 = X0 + X0 E
+    gx_hi, gx_lo = sliced_product(slices(g_hi, g_lo, slice_bits(p)), slices(x0, 0.0,
+                                                                          slice_bits(p)))
+    e_hi, e_lo = two_sum(np.eye(p), -gx_hi)
+    e_mat = e_hi + (e_lo - gx_lo)
+    corr = x0 @ e_mat
+    inv_hi, inv_lo = two_sum(x0, corr)
+    inv_hi, inv_lo = _mirror(inv_hi), _mirror(inv_lo)
+    rho = float(np.max(np.sum(np.abs(e_mat), axis=1)))  # ||I - G X0|| (infinity norm)
+    if not _finite(g_hi, g_lo, inv_hi, inv_lo) or not rho < 0.5:
+        return None
+    norm_x = float(np.max(np.sum(np.abs(x0), axis=1)))
+    # error of X1: the neglected ||X0|| ||E||^2 / (1 - ||E||), the rounding of the correction
+    # X0 E, and G's own error (slices exact; leftover terms below 2^-(2 bits) * eps * m)
+    g_err = 4.0 * EPS * 2.0 ** (-2 * bits) * n * float(np.max(np.abs(g_hi)))
+    err_inv = (norm_x * rho * rho / (1 - rho) + 4 * EPS * float(np.max(np.abs(corr)))
+               + 2 * norm_x * norm_x * g_err)  # any entry, balanced columns
+
+    b_hi, b_lo = b0 / d, np.zeros(p)  # coefficients on the balanced columns
+    bits_b = max(1, 52 - int(p).bit_length() - bits)
+    bits_u = max(1, 52 - int(n).bit_length() - bits)
+    steps, tail = 0, np.inf
+    r_hi, r_lo = _residual(y, t_s, b_hi, b_lo, bits_b)
+    updated = 0.0  # error added to each residual by the cheap updates below
+    while True:
+        # the error left after a step is at most rho / (1 - rho) times that step (the step
+        # is, to first order, the error it removed): stop when that is far below the last
+        # bit of the coefficients, when the step stalls, or after MAX_STEPS
+        if steps >= MAX_STEPS or tail <= 2.0**-20 * EPS * float(np.max(np.abs(b_hi))):
+            break
+        if w is None:
+            u_hi, u_lo = r_hi, r_lo
+        else:
+            u_hi, u_lo = two_prod(w, r_hi)
+            u_lo = u_lo + w * r_lo
+        gh, gl = sliced_product(t_sT, slices(u_hi, u_lo, bits_u))
+        delta = x0 @ (gh + gl)
+        size = float(np.max(np.abs(delta)))
+        if not np.isfinite(size):
+            return None
+        b_hi, b_lo = dd_add(b_hi, b_lo, delta, 0.0)
+        steps += 1
+        # r - T delta in plain double: the step is tiny beside b, so its rounding (at most
+        # (p + 2) eps sum|delta| per row, |T| <= 1 on balanced columns) is far below r's
+        r_hi, r_lo = dd_add(r_hi, r_lo, -(th @ delta + tl @ delta), 0.0)
+        updated += (p + 2) * EPS * float(np.sum(np.abs(delta)))
+        new_tail = rho / (1 - rho) * size
+        stalled = new_tail >= tail
+        tail = new_tail
+        if stalled:
+            break
+    # the fixed point's own error: the residual is right to about 8 eps 2^-(2 bits) of the
+    # terms of y - T b, and g = T'W r to the same relative to its terms; X0 carries that
+    # into b (balanced columns: |T| <= 1, so ||T_j|| <= sqrt(n))
+    row = float(np.max(np.abs(y))) + float(np.sum(np.abs(b_hi)))
+    err_r = 8 * EPS * 2.0 ** (-2 * min(bits, bits_b)) * row + updated  # per row
+    wmax = 1.0 if w is None else float(np.max(w))
+    fixed = norm_x * n * wmax * (err_r + 8 * EPS * 2.0 ** (-2 * min(bits, bits_u)) * float(
+        np.max(np.abs(r_hi))))
+    err_b = np.full(p, tail + fixed) * d  # back on the scaled (unbalanced) columns
+    sse = weighted_sum_squares(r_hi, r_lo, w)
+    dd2 = np.outer(d, d)
+    return Refined(b_hi * d, b_lo * d, inv_hi * dd2, inv_lo * dd2, r_hi, r_lo, sse, err_r,
+                   err_b, err_inv * dd2, steps)
+
+
+def _residual(y, t_s, b_hi, b_lo, bits_b):
+    """y - T b as a pair, with T b from exact slice products."""
+    ph, pl = sliced_product(t_s, slices(b_hi, b_lo, bits_b))
+    s, e = two_sum(y, -ph)
+    e = e - pl
+    h = s + e
+    return h, e - (h - s)
+
+
+def raw_map_pair(centers: np.ndarray, scales: np.ndarray,
+                 powers: tuple[tuple[int, ...], ...]) -> tuple[np.ndarray, np.ndarray]:
+    """The map from scaled-basis to raw-unit coefficients (``Basis.raw_map``) as a pair of
+    p x p arrays: entry [m, e] = prod_j binom(e_j, m_j) (-c_j)^(e_j - m_j) / s_j^e_j, each
+    to about 2^-100 relative (powers of c and the binomial products in double-double, the
+    powers of two exact)."""
+    pw = np.array(powers, dtype=int).reshape(len(powers), -1)
+    p, k = pw.shape
+    hi, lo = np.ones((p, p)), np.zeros((p, p))
+    for j in range(k):
+        e = pw[:, j]
+        diff = e[None, :] - e[:, None]  # row m, column e: e_j - m_j
+        top = int(diff.max()) if p else 0
+        ch, cl = [1.0], [0.0]
+        for _ in range(max(top, 0)):
+            h, lo_ = dd_mul(ch[-1], cl[-1], -float(centers[j]), 0.0)
+            ch.append(float(h))
+            cl.append(float(lo_))
+        ok = diff >= 0
+        idx = np.where(ok, diff, 0)
+        binom = binomials(int(e.max()))[e[None, :], np.where(ok, e[:, None], 0)]
+        fh, fl = two_prod(np.array(ch)[idx], binom)  # binomials <= 252: exact pair
+        fl = fl + np.array(cl)[idx] * binom
+        fh, fl = np.where(ok, fh, 0.0), np.where(ok, fl, 0.0)
+        hi, lo = dd_mul(hi, lo, fh, fl)
+    div = np.prod(np.asarray(scales, dtype=float)[None, :] ** pw, axis=1)  # powers of 2
+    return hi / div[None, :], lo / div[None, :]
+
+
+def binomials(top: int) -> np.ndarray:
+    """Table [n, k] of binom(n, k) for 0 <= k <= n <= top (0 above the diagonal)."""
+    out = np.zeros((top + 1, top + 1))
+    for n in range(top + 1):
+        out[n, : n + 1] = [comb(n, k) for k in range(n + 1)]
+    return out
+
+
+def map_pair(m_hi: np.ndarray, m_lo: np.ndarray, v_hi: np.ndarray, v_lo) -> tuple[
+        np.ndarray, np.ndarray]:
+    """(m_hi + m_lo) @ (v_hi + v_lo) for a small matrix and a vector or matrix, as a pair.
+    Rows of m are balanced by powers of two first, so each row keeps its own precision."""
+    top = np.max(np.abs(m_hi), axis=1)
+    rs = np.ldexp(1.0, -np.frexp(np.where(top > 0, top, 1.0))[1])
+    rs_b = rs[:, None]
+    m_inner = m_hi.shape[1]
+    bits = slice_bits(m_inner)
+    bits_v = max(1, 52 - int(m_inner).bit_length() - bits)
+    ph, pl = sliced_product(slices(m_hi * rs_b, m_lo * rs_b, bits), slices(v_hi, v_lo, bits_v))
+    scale = rs if ph.ndim == 1 else rs[:, None]
+    return ph / scale, pl / scale
+
+
+def accurate_sum(hi: np.ndarray, lo: np.ndarray | float = 0.0) -> float:
+    """sum(hi + lo) to a few units in the last place: hi is cut into two slices whose sums
+    are exact (n terms of at most 52 - log2 n bits on a common grid); the leftover, below
+    2^-2(52 - log2 n) of max|hi|, and lo are summed in plain double."""
+    n = int(np.size(hi))
+    if n == 0:
+        return 0.0
+    s1, s2, rest, _ = slices(hi, lo, max(1, 52 - n.bit_length()))
+    h, e = two_sum(float(np.sum(s1)), float(np.sum(s2)))
+    return float(h + (e + float(np.sum(rest))))
+
+
+def weighted_sum_squares(h: np.ndarray, lo: np.ndarray, w: np.ndarray | None) -> float:
+    """sum(w (h + lo)^2) to a few units in the last place (squares as exact products)."""
+    if w is None:
+        hh, hl = _split(h)
+        sq = h * h
+        err = ((hh * hh - sq) + 2 * hh * hl) + hl * hl  # two_prod(h, h), one split
+        err = err + 2 * h * lo
+    else:
+        wh, wl = two_prod(w, h)
+        wl = wl + w * lo
+        sq, err = two_prod(wh, h)
+        err = err + (wh * lo + wl * h)
+    return accurate_sum(sq, err)
+
+
+def total_sum_squares(y: np.ndarray, w: np.ndarray | None, centered: bool) -> float:
+    """sum(w (y - ybar)^2) (or sum(w y^2)) to a few units in the last place. The mean m is
+    a rounded double; y - m is exact as a pair, and sum(w (y - m)^2) exceeds the wanted sum
+    by W (ybar - m)^2, W = sum(w), which is subtracted (ybar - m from an accurate sum)."""
+    if not centered:
+        return weighted_sum_squares(y, np.zeros_like(y), w)
+    m = float(np.average(y, weights=w))
+    dh, dl = two_sum(y, -m)
+    total = weighted_sum_squares(dh, dl, w)
+    # ybar - m = dev / W is tiny (m is the rounded mean), so plain sums give the correction
+    # to a relative error of about eps log2 n, far below SST's last place
+    if w is None:
+        big_w, dev = float(len(y)), float(np.sum(dh) + np.sum(dl))
+    else:
+        big_w, dev = float(np.sum(w)), float(np.sum(w * dh) + np.sum(w * dl))
+    return total - dev * dev / big_w
