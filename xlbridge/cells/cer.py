@@ -44,7 +44,7 @@ __all__ = ["CANDIDATE_CAPTIONS", "CANDIDATE_COLUMNS", "CARD_CAPTIONS", "CARD_DAT
 CANDIDATE_COLUMNS = ("rank", "form", "method", "drivers", "n", "see", "cv", "spe", "r2_unit",
                      "bias_percent", "worst_p", "max_vif", "verdict")
 CANDIDATE_CAPTIONS = ("rank", "form", "method", "drivers", "rows used", "SEE", "CV", "SPE",
-                      "R² in units", "bias, % of the mean", "largest p of the drivers",
+                      "R² in units", "bias, mean % error", "largest p of the drivers",
                       "largest VIF", "verdict")
 SHAPE = CellErrorKind.SHAPE
 #: The card's item that records the day it was made (a pin file does not compare it).
@@ -56,7 +56,7 @@ CARD_CAPTIONS = {
     "error_model": "error model", "n_used": "rows used", "n_dropped": "rows left out",
     "dropped_rows": "why rows were left out", "see": "typical miss (SEE)",
     "cv": "typical miss as share of the mean (CV)", "spe": "typical percent miss (SPE)",
-    "r2_unit": "R² of the estimates in units", "bias_percent": "bias, % of the mean",
+    "r2_unit": "R² of the estimates in units", "bias_percent": "bias, mean % error",
     "centre": "centre of the data (means of the drivers)",
     "estimate_at_centre": "estimate at the centre", "p20_at_centre": "P20 at the centre",
     "p80_at_centre": "P80 at the centre", "p20_percent": "P20 vs the estimate, %",

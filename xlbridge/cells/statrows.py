@@ -52,7 +52,7 @@ STAT_ROWS = (
     (UNITS, "see", "typical miss (SEE)"),
     (UNITS, "cv", "typical miss as share of the mean (CV)"),
     (UNITS, "r2_unit", "R² of the estimates in units"),
-    (UNITS, "bias_percent", "bias, % of the mean"),
+    (UNITS, "bias_percent", "bias, mean % error"),
     (UNITS, "spe", "typical percent miss (SPE)"),
     (LOGS, "log_space", "space of these measures"),
     (LOGS, "see_log", "typical miss (SEE)"),
