@@ -19,6 +19,7 @@ from typing import Any
 from ..engine.api import ERROR_TYPES, SE_TYPES
 from ..engine.candidates import CANDIDATE_FORMS, MAX_DRIVERS
 from ..engine.cer import CORRECTIONS, METHODS
+from ..engine.errors import did_you_mean
 from ..engine.learning import THEORIES
 from ..engine.percentiles import DEFAULT_LEVELS
 
@@ -65,7 +66,8 @@ def _choice(*allowed: str) -> Callable[[str], str]:
     def parse(text: str) -> str:
         t = text.lower()
         if t not in allowed:
-            raise ValueError("use " + " or ".join(allowed))
+            near = did_you_mean(t, allowed).lstrip("; ")
+            raise ValueError(("use " + " or ".join(allowed)) + (f" ({near})" if near else ""))
         return t
 
     return parse
@@ -99,7 +101,10 @@ def _list_of(*allowed: str) -> Callable[[str], tuple[str, ...]]:
     def parse(text: str) -> tuple[str, ...]:
         items = [t.strip().lower() for t in text.split(",") if t.strip()]
         if not items or any(t not in allowed for t in items) or len(set(items)) != len(items):
-            raise ValueError("use one or more of " + ", ".join(allowed) + " separated by commas")
+            bad = next((t for t in items if t not in allowed), "")
+            near = did_you_mean(bad, allowed).lstrip("; ") if bad else ""
+            raise ValueError("use one or more of " + ", ".join(allowed) + " separated by commas"
+                             + (f" ({bad!r} is not one of them; {near})" if near else ""))
         return tuple(items)
 
     return parse
@@ -339,10 +344,16 @@ def parse_options(text: object = None) -> Options:
             raise OptionsError(
                 f"option {part!r} is not key=value. Valid options: {_valid_keys_text()}"
             )
+        if re.search(r"[,\s][\w ]*=", value):
+            raise OptionsError(
+                f"option {part!r} holds another option: separate options with ';' "
+                "(not ',' or a space), e.g. 'level=0.9; se=hc3'"
+            )
         f = _FIELDS.get(key)
         if f is None:
             raise OptionsError(
-                f"unknown option {key!r}. Valid options: {_valid_keys_text()}"
+                f"unknown option {key!r}{did_you_mean(key, _FIELDS) or '.'} "
+                f"Valid options: {_valid_keys_text()}"
             )
         if key in values:
             raise OptionsError(f"option {key!r} is given twice")

@@ -378,7 +378,7 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     w = read_ref(book, args.weights, "weights", areas[2])[1] if len(areas) > 2 else None
     y, options = base_year_y(args, book, sheet, y)
     from xlbridge.engine import parse_model
-    from xlbridge.engine.cer import is_form
+    from xlbridge.engine.cer import FORMS, is_form
 
     with as_usage():
         inp = cells.prepare_fit(y, x, args.model if model is None else model, options,
@@ -395,7 +395,8 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
                              "zmpe or ols)")
         if not is_form(inp.model):
             parse_model(inp.model, inp.x.shape[1], inp.names,
-                        intercept=bool(inp.options.fit_kwargs().get("intercept", True)))
+                        intercept=bool(inp.options.fit_kwargs().get("intercept", True)),
+                        forms=FORMS)
     with as_failure():
         result = cells.fit_prepared(inp)
     return Fitted(book, y_area, x_area, inp, result)

@@ -176,7 +176,7 @@ def fit(
     yv, xv, wv = arrays(y, x, weights)
     try:
         spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
-                           intercept=bool(intercept))
+                           intercept=bool(intercept), forms=cer.FORMS)
     except ModelError:
         if cer.is_form(model):  # a CER form named without its method
             raise ModelError(f"{model.strip()!r} is a cost-estimating-relationship form: give "

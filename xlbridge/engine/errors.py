@@ -6,6 +6,8 @@ the message (which say what to fix and may change).
 
 from __future__ import annotations
 
+import difflib
+from collections.abc import Iterable
 from enum import Enum
 
 
@@ -60,3 +62,20 @@ def distinct_shortage(degree: int, found: int) -> str:
     'degree 3 needs at least 4 distinct x values; found 2'
     """
     return f"degree {degree} needs at least {degree + 1} distinct x values; found {found}"
+
+
+def nearest(word: str, valid: Iterable[str]) -> str | None:
+    """The valid word nearest to ``word`` (difflib's similarity, any case), if one is near.
+
+    >>> nearest("surfce", ("surface", "linear", "interact"))
+    'surface'
+    """
+    pool = {v.lower(): v for v in valid}
+    found = difflib.get_close_matches(word.strip().lower(), list(pool), n=1, cutoff=0.6)
+    return pool[found[0]] if found else None
+
+
+def did_you_mean(word: str, valid: Iterable[str]) -> str:
+    """``"; did you mean 'x'?"`` for the nearest valid word, or ``""`` when none is near."""
+    near = nearest(word, valid)
+    return f"; did you mean {near!r}?" if near else ""

@@ -10,7 +10,7 @@ import re
 from dataclasses import dataclass, field
 from itertools import combinations
 
-from .errors import ModelError, ModelErrorKind
+from .errors import ModelError, ModelErrorKind, did_you_mean
 
 __all__ = ["ModelError", "ModelErrorKind", "ModelSpec", "parse_model", "term_label",
            "default_names", "MAX_DEGREE"]
@@ -18,6 +18,7 @@ __all__ = ["ModelError", "ModelErrorKind", "ModelSpec", "parse_model", "term_lab
 MAX_DEGREE = 10
 SURFACE_MIN, SURFACE_MAX = 2, 6
 KINDS = ("polynomial", "surface", "linear", "interact", "terms")
+MODEL_WORDS = ("surface", "linear", "interact")  # the model keywords a user types
 
 
 Powers = tuple[int, ...]
@@ -121,8 +122,13 @@ def parse_model(
     k: int,
     names: tuple[str, ...] | None = None,
     intercept: bool = True,
+    *,
+    forms: tuple[str, ...] = (),
 ) -> ModelSpec:
-    """Build a ModelSpec for ``k`` predictors from an int degree or a spec string."""
+    """Build a ModelSpec for ``k`` predictors from an int degree or a spec string.
+
+    ``forms`` are further model words the caller accepts (e.g. CER forms): a misspelled
+    one-word model is matched against them too in the message."""
     names = tuple(names) if names is not None else default_names(k)
     if len(names) != k:
         raise ModelError(f"{len(names)} predictor names given for {k} predictor columns",
@@ -174,7 +180,18 @@ def parse_model(
         powers += tuple(_unit(k, j, 2) for j in range(k))
         powers += tuple(_pair(k, i, j) for i, j in combinations(range(k), 2))
         return _spec("surface", "surface", names, powers, intercept)
+    if re.fullmatch(r"[^\s,*^]+", text) and key not in {n.lower() for n in names}:
+        raise ModelError(_unknown_word(text, names, forms), ModelErrorKind.SPEC)
     return _spec(text, "terms", names, _parse_terms(text, names), intercept)
+
+
+def _unknown_word(word: str, names: tuple[str, ...], forms: tuple[str, ...]) -> str:
+    """A one-word model that is neither a keyword nor a predictor: list what is valid."""
+    words = MODEL_WORDS + tuple(forms)
+    listed = ", ".join(repr(w) for w in words)
+    return (f"unknown model {word!r}{did_you_mean(word, words + names) or '.'} A model is a degree "
+            f"1-{MAX_DEGREE} (one x column), {listed}, or a term list of the predictors "
+            f"({', '.join(names)}) such as '{names[0]}, {names[0]}^2'")
 
 
 def _parse_terms(text: str, names: tuple[str, ...]) -> tuple[Powers, ...]:
@@ -191,8 +208,8 @@ def _parse_terms(text: str, names: tuple[str, ...]) -> tuple[Powers, ...]:
             name = m.group(1).strip().lower() if m else ""
             if name not in lookup:
                 raise ModelError(
-                    f"unknown predictor {factor.strip()!r} in term {term!r}; "
-                    f"predictors are: {', '.join(names)}",
+                    f"unknown predictor {factor.strip()!r} in term {term!r}"
+                    f"{did_you_mean(name, names) or ';'} predictors are: {', '.join(names)}",
                     ModelErrorKind.SPEC,
                 )
             e = int(m.group(2)) if m and m.group(2) else 1
