@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .cells.prepare import sheet_row
 from .engine import FitResult, ModelError, cooks_cutoff, row_diagnostics
 from .engine.scan import DegreeScan
 
@@ -98,7 +99,9 @@ CALM = "#7f8c8d"  # bars under the threshold
 def row_label(row: int, first_row: int | None = None) -> str:
     """``row N`` for the N-th data row (1-based, as the checks name rows), with the sheet row
     when the row of the first data cell is known."""
-    return f"row {row}" if first_row is None else f"row {row} (sheet row {row + first_row - 1})"
+    if first_row is None:
+        return f"row {row}"
+    return f"row {row} (sheet row {sheet_row(row, first_row)})"
 
 
 def influence(res: FitResult, first_row: int | None = None, top: int = INFLUENCE_TOP):

@@ -192,7 +192,7 @@ def build_report(res: FitResult, *, scan: DegreeScan | None = None,
     parts.append(_questions_table(cells.stats_table(res)))
 
     parts.append("<h2 id='checks'>Checks of the assumptions</h2>")
-    cks = cells.checks_table(res)
+    cks = cells.checks_table(res, None, src.first_row)
     verdict = cells.CHECK_COLUMNS.index("verdict")
     parts.append(_cells_table(cks, text=(0, verdict, len(cks[0]) - 1),
                               classes=[r[verdict] if r[verdict] in ("ok", "watch", "problem")

@@ -22,7 +22,7 @@ from ..engine.terms import MAX_DEGREE
 from .cache import SCAN_CACHE, content_key
 from .errors import CellError, CellErrorKind, Table
 from .options import Options
-from .prepare import FitInput, prepare_fit
+from .prepare import FitInput, prepare_fit, sheet_row
 
 # the tables here are of polynomial and surface fits: a CER form gets a message saying so
 from .prepare import polynomial_cells as fit_cells
@@ -101,12 +101,17 @@ def degrees_cells(y: Any, x: Any, max_degree: Any, options: Any = None) -> Table
     return degrees_table(scan, opts)
 
 
-def checks_table(result: FitResult, options: Options | None = None) -> Table:
-    """One row per assumption check with a plain-word verdict."""
+def checks_table(result: FitResult, options: Options | None = None,
+                 first_row: int | None = None) -> Table:
+    """One row per assumption check with a plain-word verdict; a check that names a data
+    row also names its sheet row when ``first_row`` (the sheet row of data row 1) is known."""
     opts = options or Options()
     rows: list[list[Any]] = [list(CHECK_CAPTIONS)] if opts.header else []
     for c in checks(result):
-        rows.append([getattr(c, f) for f in CHECK_COLUMNS])
+        row = [getattr(c, f) for f in CHECK_COLUMNS]
+        if c.row is not None and first_row is not None:
+            row[-1] += f"; row {c.row} is sheet row {sheet_row(c.row, first_row)}"
+        rows.append(row)
     return finish_table(rows)
 
 
@@ -115,27 +120,37 @@ def checks_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     return checks_table(res, opts)
 
 
-def rows_table(result: FitResult, options: Options | None = None) -> Table:
-    """One row per input data row (aligned with y and x, header row skipped)."""
+def rows_table(result: FitResult, options: Options | None = None, *,
+               first_row: int | None = None, labels: list[str] | None = None,
+               row_codes: Any = None) -> Table:
+    """One row per input data row (aligned with y and x, header row skipped).
+
+    Where the rows sit is known (``first_row``: the sheet row of data row 1), a leading
+    "sheet row" column gives each row's address, and ``labels`` (one per data row) a
+    "label" column after it; ``row_codes`` (the cell rules' code per row) say why a
+    dropped row was left out."""
     opts = options or Options()
     d = row_diagnostics(result)
-    rows: list[list[Any]] = [list(ROW_CAPTIONS)] if opts.header else []
+    lead = (["sheet row"] if first_row is not None else []) + (
+        ["label"] if labels is not None else [])
+    rows: list[list[Any]] = [lead + list(ROW_CAPTIONS)] if opts.header else []
     cols = [getattr(d, f) for f in ROW_COLUMNS]
     for i in range(len(d.flag)):
-        rows.append([c[i] for c in cols])
+        head: list[Any] = [float(sheet_row(i + 1, first_row))] if first_row is not None else []
+        if labels is not None:
+            head.append(labels[i] if i < len(labels) else "")
+        row = head + [c[i] for c in cols]
+        if row_codes is not None and row_codes[i]:
+            row[-1] = f"dropped: {drop_reason(row_codes[i])}"
+        rows.append(row)
     return finish_table(rows)
 
 
 def rows_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     inp = prepare_fit(y, x, model, options)
     res = fit_prepared(inp)
-    table = rows_table(res, inp.options)
     # say why a row was left out, as the cell rules saw it
-    start = 1 if inp.options.header else 0
-    for i, code in enumerate(inp.row_codes):
-        if code:
-            table[start + i][-1] = f"dropped: {drop_reason(code)}"
-    return table
+    return rows_table(res, inp.options, row_codes=inp.row_codes)
 
 
 def optimum_captions(level: float) -> list[str]:

@@ -33,7 +33,8 @@ from .values import (
 )
 
 __all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells", "model_failure",
-           "polynomial_cells", "polynomial_prepared", "sheet_row_text"]
+           "polynomial_cells", "polynomial_prepared", "sheet_row", "sheet_row_text",
+           "sheet_rows_text"]
 
 SHAPE = CellErrorKind.SHAPE
 
@@ -135,6 +136,23 @@ def model_failure(exc: ModelError, inp: FitInput) -> CellError:
         text += f" (in the options: method={'|'.join(METHODS)}, e.g. method=mupe)"
     text += sheet_row_text(getattr(exc, "row", None), inp.header_rows)
     return CellError.from_model(exc, text)
+
+
+def sheet_row(row: int, first_row: int) -> int:
+    """The sheet row of 1-based data ``row`` when data row 1 sits on sheet row ``first_row``
+    (the first cell of y plus its header rows): the one rule for every row address."""
+    return row + first_row - 1
+
+
+def sheet_rows_text(rows: Any, first_row: int, limit: int = 12) -> str:
+    """``"sheet row 6"`` / ``"sheet rows 6, 9 and 14"`` for 1-based data ``rows`` (the first
+    ``limit`` named, then how many more)."""
+    at = [str(sheet_row(int(r), first_row)) for r in rows]
+    if len(at) > limit:
+        at = at[:limit] + [f"{len(at) - limit} more"]
+    if len(at) == 1:
+        return f"sheet row {at[0]}"
+    return f"sheet rows {', '.join(at[:-1])} and {at[-1]}"
 
 
 def sheet_row_text(row: int | None, header_rows: int) -> str:

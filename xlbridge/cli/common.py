@@ -180,6 +180,9 @@ def add_data_options(p: argparse.ArgumentParser, *, model_required: bool = True)
                    help="sheet for references without one (default: the first sheet)")
     p.add_argument("--weights", default=None, metavar="REF",
                    help="cells of positive weights, one per row of y (weighted least squares)")
+    p.add_argument("--label", default=None, metavar="REF",
+                   help="cells naming each row (a job number, a name): shown beside the "
+                        "sheet row wherever a row is reported")
 
 
 def add_output_options(p: argparse.ArgumentParser, formats: Sequence[str],
@@ -359,6 +362,20 @@ class Fitted:
     x_area: Any
     inp: Any
     result: Any
+    labels: list[str] | None = None  # one per data row, from --label
+
+    @property
+    def first_row(self) -> int:
+        """The sheet row of data row 1: y's first cell plus the header rows above the data."""
+        return self.y_area.r1 + self.inp.header_rows
+
+    def where(self, row: int) -> str:
+        """``sheet row N`` of 1-based data ``row`` (with its label when --label gave one)."""
+        from xlbridge.cells.prepare import sheet_row
+
+        text = f"sheet row {sheet_row(row, self.first_row)}"
+        label = self.labels[row - 1] if self.labels and row <= len(self.labels) else ""
+        return f"{text} ({label})" if label else text
 
 
 def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = False) -> Fitted:
@@ -372,10 +389,13 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     refs = [("y", args.y), ("x", args.x)]
     if getattr(args, "weights", None):
         refs.append(("weights", args.weights))
-    areas = resolve(book, refs, sheet)
-    y_area, y = read_ref(book, args.y, "y", areas[0])
-    x_area, x = read_ref(book, args.x, "x", areas[1])
-    w = read_ref(book, args.weights, "weights", areas[2])[1] if len(areas) > 2 else None
+    if getattr(args, "label", None):
+        refs.append(("label", args.label))
+    areas = dict(zip((what for what, _ in refs), resolve(book, refs, sheet)))
+    y_area, y = read_ref(book, args.y, "y", areas["y"])
+    x_area, x = read_ref(book, args.x, "x", areas["x"])
+    w = read_ref(book, args.weights, "weights", areas["weights"])[1] \
+        if "weights" in areas else None
     y, options = base_year_y(args, book, sheet, y)
     from xlbridge.engine import parse_model
     from xlbridge.engine.cer import FORMS, is_form
@@ -399,7 +419,39 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
                         forms=FORMS)
     with as_failure():
         result = cells.fit_prepared(inp)
-    return Fitted(book, y_area, x_area, inp, result)
+    fitted = Fitted(book, y_area, x_area, inp, result)
+    if result.n_dropped:  # name the rows left out where a person can find them
+        import dataclasses
+
+        import numpy as np
+
+        from xlbridge.cells.prepare import sheet_rows_text
+
+        gone = np.flatnonzero(~np.asarray(result.used)) + 1
+        fitted.result = dataclasses.replace(result, notes=tuple(result.notes) + (
+            f"rows left out: {sheet_rows_text(gone, fitted.first_row)}",))
+    if "label" in areas:
+        fitted.labels = _labels(book, args.label, areas["label"], fitted.first_row,
+                                len(inp.y))
+    return fitted
+
+
+def _labels(book: Any, ref: str, area: Any, first_row: int, n: int) -> list[str]:
+    """The --label text of each of the ``n`` data rows, matched by sheet row."""
+    from xlbridge.book.refs import Area
+
+    if area.n_cols != 1:
+        raise UsageError(f"--label {ref} ({area.label()}) must be one column; it has "
+                         f"{area.n_cols}")
+    cells = Area(area.sheet, first_row, area.c1, first_row + n - 1, area.c1)
+    grid = book.read_area(cells)
+    out = []
+    for row in grid:
+        v = row[0] if row else None
+        if isinstance(v, float) and v.is_integer():
+            v = int(v)
+        out.append("" if v is None else str(v))
+    return out
 
 
 def add_base_year_options(p: argparse.ArgumentParser) -> None:

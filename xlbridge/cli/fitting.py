@@ -139,22 +139,35 @@ def configure_model_table(p: argparse.ArgumentParser) -> None:
 
 def run_checks(args: argparse.Namespace) -> int:
     from xlbridge.cells import checks_table
+    from xlbridge.cells.prepare import sheet_row
     from xlbridge.engine import checks
 
     f = fit_from_args(args)
-    table = checks_table(f.result, f.inp.options.replace(header=True))
-    doc = {"model": f.result.to_dict()["model"],
-           "checks": [c.to_dict() for c in checks(f.result)]}
+    table = checks_table(f.result, f.inp.options.replace(header=True), f.first_row)
+    if f.labels:  # the label of the row a check names, after its sheet row
+        for row, c in zip(table[1:], checks(f.result)):
+            if c.row is not None and f.labels[c.row - 1]:
+                row[-1] += f" ({f.labels[c.row - 1]})"
+    found = [c.to_dict() for c in checks(f.result)]
+    for c in found:
+        c["sheet_row"] = None if c["row"] is None else sheet_row(c["row"], f.first_row)
+    doc = {"model": f.result.to_dict()["model"], "checks": found}
     return emit_tables(args, f, "checks", table, doc, f", model {f.result.model_text}")
 
 
 def run_rows(args: argparse.Namespace) -> int:
     from xlbridge.cells import rows_table
+    from xlbridge.cells.prepare import sheet_row
     from xlbridge.engine import row_diagnostics
 
     f = fit_from_args(args)
-    table = rows_table(f.result, f.inp.options.replace(header=True))
-    doc = {"model": f.result.to_dict()["model"], "rows": row_diagnostics(f.result).to_dict()}
+    table = rows_table(f.result, f.inp.options.replace(header=True), first_row=f.first_row,
+                       labels=f.labels, row_codes=f.inp.row_codes)
+    rows = row_diagnostics(f.result).to_dict()
+    rows["sheet_row"] = [sheet_row(i + 1, f.first_row) for i in range(len(f.inp.y))]
+    if f.labels is not None:
+        rows["label"] = f.labels
+    doc = {"model": f.result.to_dict()["model"], "rows": rows}
     return emit_tables(args, f, "rows", table, doc, f", model {f.result.model_text}")
 
 

@@ -68,13 +68,15 @@ class Check:
     p_value: float
     verdict: str
     note: str
+    row: int | None = None  # the 1-based data row the note names (front ends add its address)
 
     def to_dict(self) -> dict:
         def plain(v):
             return float(v) if math.isfinite(v) else None
 
         return {"check": self.check, "statistic": plain(self.statistic),
-                "p_value": plain(self.p_value), "verdict": self.verdict, "note": self.note}
+                "p_value": plain(self.p_value), "verdict": self.verdict, "note": self.note,
+                "row": self.row}
 
 
 def _whitened(res: FitResult) -> np.ndarray:
@@ -336,7 +338,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         verdict = "problem" if pb < 0.05 else ("watch" if abs(tmax) > 3 else "ok")
         out.append(Check("outliers", tmax, pb, verdict,
                          f"largest externally studentized residual at row {rows[i]}; "
-                         "p is Bonferroni-adjusted"))
+                         "p is Bonferroni-adjusted", int(rows[i])))
     if np.all(np.isnan(cooks)):
         out.append(Check("influence (Cook's distance)", math.nan, math.nan, "n/a", ""))
     else:
@@ -346,7 +348,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         out.append(Check("influence (Cook's distance)", float(cooks[i]), math.nan, verdict,
                          f"largest at row {rows[i]}; {above4} rows above 4/n = "
                          f"{cooks_cutoff(n):.3g}, "
-                         f"{above1} above 1 (watch above 0.5)"))
+                         f"{above1} above 1 (watch above 0.5)", int(rows[i])))
 
     vifs = [c.vif for c in res.coefficients if c.term != "intercept"]
     vifc = [c.vif_centered for c in res.coefficients if c.term != "intercept"]
@@ -372,7 +374,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
     out.append(Check("extrapolation risk", hmax, math.nan, verdict,
                      f"largest leverage at row {rows[i]}; data span {ranges}: predictions "
                      "outside it (or, with 2+ predictors, beyond the largest leverage) are "
-                     "extrapolation and are flagged"))
+                     "extrapolation and are flagged", int(rows[i])))
 
     out.append(_lack_of_fit_check(res, scale))
 
