@@ -101,7 +101,8 @@ def test_ragged_and_mixed_blocks_are_refused():
 
 @pytest.mark.parametrize("value, code", [
     (None, cells.BLANK), ("", cells.BLANK), ("  ", cells.BLANK), (float("nan"), cells.BLANK),
-    (True, cells.BOOL), (False, cells.BOOL), ("abc", cells.TEXT), ("12", cells.TEXT),
+    (True, cells.BOOL), (False, cells.BOOL), ("abc", cells.TEXT), ("12 m", cells.TEXT),
+    ("nan", cells.TEXT),
     ("#N/A", cells.ERROR), ("#DIV/0!", cells.ERROR), ("#SPILL!", cells.ERROR),
     ("#calc!", cells.ERROR), ("xlbridge: y has 3 rows", cells.ERROR), (NA, cells.ERROR),
     (SPILL, cells.ERROR), (float("inf"), cells.NONFINITE),

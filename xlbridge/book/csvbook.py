@@ -11,19 +11,25 @@ from typing import Any
 from xlbridge.book.safety import BookError, reader_guard
 from xlbridge.book.workbook import Book, SheetData
 
-__all__ = ["CsvBook"]
+__all__ = ["CsvBook", "DELIMITERS", "sniff_dialect"]
 
 
 _NUM = re.compile(r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*$")
+_COMMA_NUM = re.compile(r"^\s*[+-]?\d+,\d+([eE][+-]?\d+)?\s*$")
+_SAMPLE = 65536
+DELIMITERS = {"comma": ",", "semicolon": ";", "tab": "\t"}
 
 
-def _csv_value(text: str) -> Any:
-    """CSV text -> the value a spreadsheet program would put in the cell."""
+def _csv_value(text: str, decimal_comma: bool = False) -> Any:
+    """CSV text -> the value a spreadsheet program would put in the cell (``1,5`` is 1.5
+    when the file writes a decimal comma)."""
     s = text.strip()
     if s == "":
         return None
     if _NUM.match(s):
         return float(s)
+    if decimal_comma and _COMMA_NUM.match(s):
+        return float(s.replace(",", "."))
     up = s.upper()
     if up == "TRUE":
         return True
@@ -32,8 +38,35 @@ def _csv_value(text: str) -> Any:
     return text
 
 
+def sniff_dialect(sample: str, delimiter: str | None = None) -> tuple[str, bool]:
+    """(delimiter, decimal comma) of a CSV sample (its first 64 KiB): a ``;`` or tab the
+    same number of times on every line is the separator (else what csv.Sniffer finds,
+    else a comma); a decimal comma when the separator is not a comma and some field reads
+    like ``1,5``. A ``delimiter`` given is taken as it is."""
+    lines = [ln for ln in sample.splitlines()[:200] if ln.strip()]
+    if len(sample) >= _SAMPLE and len(lines) > 1:
+        lines = lines[:-1]  # the sample may cut its last line
+    delim = delimiter or ""
+    for d in ("" if delim else ";\t"):
+        counts = {ln.count(d) for ln in lines}
+        if len(counts) == 1 and counts.pop() > 0:
+            delim = d
+            break
+    if not delim:
+        try:
+            delim = csv.Sniffer().sniff(sample, delimiters=",;\t").delimiter
+        except csv.Error:
+            delim = ","
+    comma = delim != "," and any(_COMMA_NUM.match(f) for ln in lines for f in ln.split(delim))
+    return delim, comma
+
+
 class CsvBook(Book):
-    def __init__(self, path: Path) -> None:
+    """A CSV file as one sheet. ``delimiter`` (a name of ``DELIMITERS`` or the character)
+    and ``decimal_comma`` are found from the file when None (``sniff_dialect``)."""
+
+    def __init__(self, path: Path, *, delimiter: str | None = None,
+                 decimal_comma: bool | None = None) -> None:
         try:
             raw = path.read_bytes()
         except OSError as exc:
@@ -47,14 +80,13 @@ class CsvBook(Book):
             text = raw.decode("cp1252", errors="replace")
         if "\x00" in text:
             raise BookError(f"{path.name} is not a text file; a CSV file must be text")
-        sample = text[:65536]
-        try:
-            dialect: Any = csv.Sniffer().sniff(sample, delimiters=",;\t")
-        except csv.Error:
-            dialect = csv.excel
+        delim, comma = sniff_dialect(text[:_SAMPLE], DELIMITERS.get(delimiter or "", delimiter))
+        if decimal_comma is None:
+            decimal_comma = comma
+        self.delimiter, self.decimal_comma = delim, decimal_comma
         with reader_guard(path.name):
-            grid = [[_csv_value(v) for v in row]
-                    for row in csv.reader(io.StringIO(text), dialect)]
+            grid = [[_csv_value(v, decimal_comma) for v in row]
+                    for row in csv.reader(io.StringIO(text), delimiter=delim)]
         while grid and all(v is None for v in grid[-1]):
             grid.pop()
         sheet = path.stem

@@ -19,8 +19,11 @@ __all__ = ["Book", "TableInfo", "missing_value_message", "open_book", "xlwings_s
 _WORKBOOK_SUFFIXES = (".xlsx", ".xlsm")
 
 
-def open_book(path: str | Path) -> Book:
-    """Open .xlsx/.xlsm/.csv for reading; raises BookError with a message for bad files."""
+def open_book(path: str | Path, *, delimiter: str | None = None,
+              decimal_comma: bool | None = None) -> Book:
+    """Open .xlsx/.xlsm/.csv for reading; raises BookError with a message for bad files.
+    A CSV file's ``delimiter`` (comma, semicolon or tab) and ``decimal_comma`` are found
+    from the file when None (``csvbook.CsvBook``)."""
     p = Path(path)
     if not p.exists():
         raise BookError(f"file {p} not found")
@@ -28,7 +31,7 @@ def open_book(path: str | Path) -> Book:
         raise BookError(f"{p} is a folder, not a workbook")
     suffix = p.suffix.lower()
     if suffix == ".csv":
-        return CsvBook(p)
+        return CsvBook(p, delimiter=delimiter, decimal_comma=decimal_comma)
     if suffix in _WORKBOOK_SUFFIXES:
         return XlsxBook(p)
     if suffix in (".xls", ".xlsb", ".ods", ".numbers"):

@@ -195,6 +195,11 @@ class Options:
         "fit ln(y); predictions back-transformed with Duan's smearing", fit_kwarg="log",
         show=_show_yes_no,
     )
+    totals: str = _opt(
+        "drop", _choice("drop", "keep"), "drop or keep",
+        "rows that look like totals (y and x the sum or mean of the rows above, or a "
+        "label such as 'total'): drop = leave them out with a note, keep = fit them",
+    )
     # the valid se and error values are the engine's (one list each)
     se: str = _opt(
         "ols", _choice(*SE_TYPES), _listed(SE_TYPES),

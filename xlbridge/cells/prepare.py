@@ -19,10 +19,22 @@ from ..engine.cer import METHODS, is_form
 from ..engine.errors import ModelErrorKind
 from .cache import FIT_CACHE, content_key
 from .errors import CellError, CellErrorKind
+from .guards import (
+    RowNamer,
+    drop_share_note,
+    find_totals,
+    sheet_row,
+    sheet_rows_text,
+    swapped_note,
+    text_numbers_note,
+    total_label_rows,
+    totals_note,
+)
 from .options import Options
 from .values import (
     BLANK,
     OK,
+    TOTAL,
     clean_cells,
     drop_summary,
     drops_text,
@@ -52,6 +64,7 @@ class FitInput:
     drops: tuple[tuple[str, int], ...]
     row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (drop_reason)
     weights: np.ndarray | None = None
+    notes: tuple[str, ...] = ()  # what the guard rails found (totals, text numbers, ...)
 
     @property
     def header_rows(self) -> int:
@@ -66,14 +79,22 @@ class FitInput:
     def key(self) -> str:
         """Content hash of everything that changes the fit."""
         return content_key("fit", self.y, self.x, self.names, self.response, self.model,
-                           sorted(self.options.fit_kwargs().items()), self.weights)
+                           sorted(self.options.fit_kwargs().items()), self.weights,
+                           self.notes)
 
 
 def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
-                weights: Any = None) -> FitInput:
+                weights: Any = None, labels: Any = None,
+                first_row: int | None = None) -> FitInput:
     """Check and clean the cells of y, x, model, options (and optional weight cells, one
     per row); raises CellError / OptionsError. Trailing rows blank in y and every x column
-    (a whole-column selection) are not data and are not counted as dropped."""
+    (a whole-column selection) are not data and are not counted as dropped.
+
+    The guard rails (``cells.guards``) add notes: rows that look like totals are left out
+    (unless totals=keep; ``labels`` are the cells of a label column, one per row, whose
+    words can mark a total), numbers stored as text are counted, a fit leaving out more
+    than a fifth of its rows and a y that looks like a driver are named. ``first_row`` is
+    the sheet row of the first cell of y, so that notes name sheet rows."""
     opts = options_value(options)
     mod = model_value(model)
     y_grid = grid_of(y, "y").transposed_line()  # a row of y values reads as a column
@@ -120,10 +141,33 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
         wv = wc.values[:n, 0]
         blocks.append(wc.codes[:n])
     codes = row_codes(*blocks)
+    namer = RowNamer(first_row, int(yc.names is not None or xc.names is not None))
+    notes = []
+    texts = [c.text_numbers[:n] for c in (yc, xc) if c.text_numbers is not None]
+    if texts:
+        per_row = np.hstack(texts).sum(axis=1) * (codes == OK)
+        rows = np.flatnonzero(per_row) + 1
+        if len(rows):
+            notes.append(text_numbers_note(rows, int(per_row.sum()), namer))
+    if opts.totals == "drop":
+        codes = codes.copy()
+        labelled = total_label_rows(labels, n, namer.header_rows) & (codes == OK)
+        sums = find_totals(yv, xv, (codes == OK) & ~labelled)
+        for rows, why in ((np.flatnonzero(labelled), "its label reads like a total"),
+                          ([i for i, _ in sums], "y and x equal the "
+                           + " or ".join(sorted({k for _, k in sums})) + " of the rows above")):
+            if len(rows):
+                codes[np.asarray(rows)] = TOTAL
+                notes.append(totals_note(np.asarray(rows) + 1, why, namer))
+        yv = np.where(codes == TOTAL, np.nan, yv)
+        xv = np.where((codes == TOTAL)[:, None], np.nan, xv)
+    loud = drop_share_note(int(np.count_nonzero(codes != OK)), n)
+    notes += [t for t in (loud, swapped_note(yv, xv)) if t]
     if wv is not None:
         wv = np.where(codes == OK, wv, np.nan)
     response = yc.names[0] if yc.names else None
-    return FitInput(yv, xv, xc.names, response, mod, opts, drop_summary(codes), codes, wv)
+    return FitInput(yv, xv, xc.names, response, mod, opts, drop_summary(codes), codes, wv,
+                    tuple(notes))
 
 
 def model_failure(exc: ModelError, inp: FitInput) -> CellError:
@@ -136,23 +180,6 @@ def model_failure(exc: ModelError, inp: FitInput) -> CellError:
         text += f" (in the options: method={'|'.join(METHODS)}, e.g. method=mupe)"
     text += sheet_row_text(getattr(exc, "row", None), inp.header_rows)
     return CellError.from_model(exc, text)
-
-
-def sheet_row(row: int, first_row: int) -> int:
-    """The sheet row of 1-based data ``row`` when data row 1 sits on sheet row ``first_row``
-    (the first cell of y plus its header rows): the one rule for every row address."""
-    return row + first_row - 1
-
-
-def sheet_rows_text(rows: Any, first_row: int, limit: int = 12) -> str:
-    """``"sheet row 6"`` / ``"sheet rows 6, 9 and 14"`` for 1-based data ``rows`` (the first
-    ``limit`` named, then how many more)."""
-    at = [str(sheet_row(int(r), first_row)) for r in rows]
-    if len(at) > limit:
-        at = at[:limit] + [f"{len(at) - limit} more"]
-    if len(at) == 1:
-        return f"sheet row {at[0]}"
-    return f"sheet rows {', '.join(at[:-1])} and {at[-1]}"
 
 
 def sheet_row_text(row: int | None, header_rows: int) -> str:
@@ -174,8 +201,9 @@ def _fit_now(inp: FitInput) -> FitResult:
     changes: dict[str, Any] = {}
     if inp.response and inp.response != res.response:
         changes["response"] = inp.response
-    if inp.drops:
-        changes["notes"] = tuple(res.notes) + (drops_text(inp.drops),)
+    if inp.drops or inp.notes:
+        changes["notes"] = (tuple(res.notes) + inp.notes
+                            + ((drops_text(inp.drops),) if inp.drops else ()))
     if res.n_dropped != inp.n_dropped:
         # the engine drops exactly the NaN rows we hand it; keep the cell-level count
         changes["n_dropped"] = inp.n_dropped

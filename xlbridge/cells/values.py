@@ -22,8 +22,10 @@ number, ``book.values.serial_of``) or already serial numbers; blanks ``None`` or
 booleans ``bool`` (never 1/0: text-like, the row is left out); error cells ``None`` (the
 JavaScript host without ``err_to_str``), text such as ``"#N/A"``, or the automation code of
 an error as an ``int`` (the classic Windows add-in, for the newer errors such as
-``#SPILL!``; ``book.values.is_error_code``). A blank, text, boolean or error cell makes its
-row unusable; such rows are dropped listwise and counted in ``FitResult.n_dropped``.
+``#SPILL!``; ``book.values.is_error_code``). Text that reads as a number once trimmed
+(``" 7.5"``, ``"-1e3"``; not ``"nan"`` or ``"1_000"``) is that number, and the fit's notes
+count it. A blank, other text, boolean or error cell makes its row unusable; such rows are
+dropped listwise and counted in ``FitResult.n_dropped``.
 """
 
 from __future__ import annotations
@@ -31,6 +33,7 @@ from __future__ import annotations
 import datetime as dt
 import math
 import numbers
+import re
 from dataclasses import dataclass
 from itertools import chain
 from typing import Any
@@ -41,7 +44,7 @@ from ..book.values import bounded_name, is_error_code, is_error_text, serial_of
 from .errors import CellError, CellErrorKind
 from .options import Options, parse_options
 
-__all__ = ["OK", "BLANK", "BOOL", "TEXT", "NONFINITE", "ERROR", "MODEL_HELP", "CleanCells",
+__all__ = ["OK", "BLANK", "BOOL", "TEXT", "NONFINITE", "ERROR", "TOTAL", "MODEL_HELP", "CleanCells",
            "Grid", "clean_cells", "drop_reason", "drop_summary", "drops_text", "from_array",
            "grid_of", "group_key", "is_error_text", "model_value", "options_value",
            "row_codes", "single_value"]
@@ -50,9 +53,14 @@ SHAPE = CellErrorKind.SHAPE
 
 # --- single cells ------------------------------------------------------------------------
 
-OK, BLANK, BOOL, TEXT, NONFINITE, ERROR = range(6)
+OK, BLANK, BOOL, TEXT, NONFINITE, ERROR, TOTAL = range(7)
 _REASON = {BLANK: "blank", BOOL: "true/false", TEXT: "text", NONFINITE: "not finite",
-           ERROR: "error value"}
+           ERROR: "error value", TOTAL: "total row"}
+# a number stored as text is read as that number (one rule for every reader and the API);
+# the cell's code says so until clean_cells records it and makes it OK
+TEXT_NUMBER = -1
+# Python's float syntax without nan/inf words or underscores: what a person types as a number
+_NUMBER_TEXT = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
 
 def _number(v: float) -> tuple[float, int]:
@@ -80,6 +88,9 @@ def _cell(v: Any) -> tuple[float, int]:
         s = v.strip()
         if not s:
             return math.nan, BLANK
+        if _NUMBER_TEXT.fullmatch(s):
+            value, code = _number(float(s))
+            return value, TEXT_NUMBER if code == OK else code
         return math.nan, ERROR if is_error_text(s) else TEXT
     if isinstance(v, (dt.date, dt.time)):
         return serial_of(v), OK
@@ -207,11 +218,13 @@ def _split_header(g: Grid, names: str, what: str) -> tuple[tuple[str, ...] | Non
 class CleanCells:
     """One block of cells as numbers: ``values`` is n x k with NaN where a cell is not a
     usable number, ``codes`` says why per row (0 = usable), ``names`` came from a header
-    row (None without one)."""
+    row (None without one); ``text_numbers`` marks the cells read from numbers stored as
+    text (None when there are none)."""
 
     values: np.ndarray
     codes: np.ndarray
     names: tuple[str, ...] | None
+    text_numbers: np.ndarray | None = None
 
     @property
     def n_rows(self) -> int:
@@ -231,6 +244,10 @@ def clean_cells(value: Any, what: str = "x", *, names: str = "auto",
     arr, codes = _convert(grid.flat)
     arr = arr.reshape(grid.rows, grid.cols)
     codes = codes.reshape(grid.rows, grid.cols)
+    texts = codes == TEXT_NUMBER
+    if texts.any():
+        codes[texts] = OK
+        return CleanCells(arr, codes, header, texts)
     return CleanCells(arr, codes, header)
 
 
@@ -249,7 +266,7 @@ def row_codes(*blocks: np.ndarray) -> np.ndarray:
 def drop_summary(codes: np.ndarray) -> tuple[tuple[str, int], ...]:
     """(reason, rows) for each reason some rows were dropped, in a fixed order."""
     out = []
-    for code in (BLANK, TEXT, ERROR, BOOL, NONFINITE):
+    for code in (BLANK, TEXT, ERROR, BOOL, NONFINITE, TOTAL):
         n = int(np.count_nonzero(codes == code))
         if n:
             out.append((_REASON[code], n))

@@ -19,7 +19,8 @@ from typing import Any, TextIO
 
 __all__ = ["EXIT_OK", "EXIT_FAIL", "EXIT_USAGE", "REF_HELP", "CommandError", "UsageError",
            "Failure", "Fitted", "Progress", "add_base_year_options", "add_data_options",
-           "add_output_options", "as_failure", "as_usage", "base_year_y", "choice", "closest",
+           "add_output_options", "add_reading_options", "as_failure", "check_alignment",
+           "label_cells", "as_usage", "base_year_y", "choice", "closest",
            "csv_text", "emit", "emit_tables",
            "exit_code", "fit_from_args", "info", "warn", "json_text", "message_of", "open_book",
            "read_points", "read_ref", "render_table", "resolve", "xlsx_copy"]
@@ -158,6 +159,8 @@ def choice(valid: Sequence[str], what: str) -> Callable[[str], str]:
 
 # --- shared options ---------------------------------------------------------------------------
 
+CSV_DIALECTS = ("auto", "comma", "semicolon", "tab")
+
 REF_HELP = (
     "REF forms: B2:B40, $B$2:$B$40, Data!B2:B40, 'Site data'!B2:B352, whole columns "
     "Data!B:B (trailing blanks ignored), a defined name, or a table column Sales[Price]"
@@ -183,6 +186,20 @@ def add_data_options(p: argparse.ArgumentParser, *, model_required: bool = True)
     p.add_argument("--label", default=None, metavar="REF",
                    help="cells naming each row (a job number, a name): shown beside the "
                         "sheet row wherever a row is reported")
+    add_reading_options(p)
+
+
+def add_reading_options(p: argparse.ArgumentParser) -> None:
+    """--strict, --csv-dialect, --decimal-comma: how the cells are read."""
+    p.add_argument("--strict", action="store_true",
+                   help="ranges that start or end on different sheet rows are an error "
+                        "(without it, a warning; rows are paired by position)")
+    p.add_argument("--csv-dialect", type=choice(CSV_DIALECTS, "CSV dialect"), default="auto",
+                   metavar="D", help="field separator of a CSV input: auto (found from the "
+                                     "file), comma, semicolon or tab")
+    p.add_argument("--decimal-comma", action="store_true",
+                   help="numbers in a CSV input are written with a decimal comma (1,5); "
+                        "found from the file when the separator is ; or tab")
 
 
 def add_output_options(p: argparse.ArgumentParser, formats: Sequence[str],
@@ -315,11 +332,32 @@ class Progress:
 # --- reading the data of a fit ----------------------------------------------------------------
 
 
-def open_book(path: str) -> Any:
-    """The workbook or CSV file at ``path``, opened for reading."""
+def open_book(path: str, args: argparse.Namespace | None = None) -> Any:
+    """The workbook or CSV file at ``path``, opened for reading (a CSV file in the dialect
+    of ``args.csv_dialect`` / ``args.decimal_comma`` when given)."""
     from xlbridge.book.reader import open_book as open_any
 
-    return open_any(path)
+    dialect = getattr(args, "csv_dialect", "auto")
+    return open_any(path, delimiter=None if dialect == "auto" else dialect,
+                    decimal_comma=True if getattr(args, "decimal_comma", False) else None)
+
+
+def check_alignment(spans: Sequence[tuple[str, str, Any]], strict: bool) -> None:
+    """Ranges read together (option, REF text, area) that start or end on different sheet
+    rows: a warning naming both spans, or with ``strict`` a usage error."""
+    if len(spans) < 2:
+        return
+    what0, ref0, a0 = spans[0]
+    for what, ref, a in spans[1:]:
+        for end, r0, r in (("start", a0.r1, a.r1), ("end", a0.r2, a.r2)):
+            if r0 == r:
+                continue
+            text = (f"--{what0} {ref0} and --{what} {ref} {end} on different rows "
+                    f"({r0} vs {r}); rows are paired by position")
+            if strict:
+                raise UsageError(text + " (--strict)")
+            warn(text)
+            break
 
 
 def resolve(book: Any, refs: Sequence[tuple[str, str]], sheet: str | None) -> list[Any]:
@@ -384,14 +422,17 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     method= in --options) only where ``cer`` says the command takes one."""
     from xlbridge import cells
 
-    book = open_book(args.book)
+    book = open_book(args.book, args)
     sheet = book.sheet_name(args.sheet) if args.sheet else None
     refs = [("y", args.y), ("x", args.x)]
     if getattr(args, "weights", None):
         refs.append(("weights", args.weights))
     if getattr(args, "label", None):
         refs.append(("label", args.label))
-    areas = dict(zip((what for what, _ in refs), resolve(book, refs, sheet)))
+    resolved = resolve(book, refs, sheet)
+    check_alignment([(w, r, a) for (w, r), a in zip(refs, resolved)],
+                    getattr(args, "strict", False))
+    areas = dict(zip((what for what, _ in refs), resolved))
     y_area, y = read_ref(book, args.y, "y", areas["y"])
     x_area, x = read_ref(book, args.x, "x", areas["x"])
     w = read_ref(book, args.weights, "weights", areas["weights"])[1] \
@@ -402,7 +443,9 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
 
     with as_usage():
         inp = cells.prepare_fit(y, x, args.model if model is None else model, options,
-                                weights=w)
+                                weights=w,
+                                labels=label_cells(book, y_area, x_area, areas.get("label")),
+                                first_row=y_area.r1)
         # a model text that cannot be read is a usage error, not a failed fit (a CER form
         # is not a term list: the engine checks it with its method)
         if is_form(inp.model) and inp.options.method is not None and not cer:
@@ -417,6 +460,8 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
             parse_model(inp.model, inp.x.shape[1], inp.names,
                         intercept=bool(inp.options.fit_kwargs().get("intercept", True)),
                         forms=FORMS)
+    for note in inp.notes:
+        warn(note)
     with as_failure():
         result = cells.fit_prepared(inp)
     fitted = Fitted(book, y_area, x_area, inp, result)
@@ -452,6 +497,21 @@ def _labels(book: Any, ref: str, area: Any, first_row: int, n: int) -> list[str]
             v = int(v)
         out.append("" if v is None else str(v))
     return out
+
+
+def label_cells(book: Any, y_area: Any, x_area: Any, label_area: Any = None) -> Any:
+    """The cells beside y, over y's rows, whose words can mark a total row: the --label
+    column, else the sheet's first column when neither y nor x is that column (where a
+    label such as TOTAL usually stands); None otherwise."""
+    from xlbridge.book.refs import Area
+
+    if label_area is not None:
+        sheet, col = label_area.sheet, label_area.c1
+    elif y_area.c1 == 1 or (x_area.sheet == y_area.sheet and x_area.c1 == 1):
+        return None
+    else:
+        sheet, col = y_area.sheet, 1
+    return book.xlwings_value(Area(sheet, y_area.r1, col, y_area.r2, col))
 
 
 def add_base_year_options(p: argparse.ArgumentParser) -> None:
