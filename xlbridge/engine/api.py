@@ -10,7 +10,7 @@ from . import cer, inference
 from .cerresult import CerResult
 from .errors import ModelError, ModelErrorKind, check_level, distinct_shortage
 from .result import FitResult, Remedy
-from .solve import solve
+from .solve import check_terms, solve, too_large
 from .terms import parse_model
 
 #: Where the statistical conventions are written down (named in notes that rely on one).
@@ -214,6 +214,7 @@ def fit(
         )
     if wu is not None and not math.isfinite(float(np.sum(wu))):
         raise ModelError("weights are too large", ModelErrorKind.SCALE)
+    check_terms(xu, np.log(np.abs(yu[yu != 0])) if log else yu, spec)
     # overflow in extreme data is detected and reported as a message, not a warning
     with np.errstate(over="ignore", invalid="ignore"):
         return _fit_clean(spec, xu, yu, wu, float(level), used, n_dropped, response, se,
@@ -232,17 +233,30 @@ def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, erro
             raise ModelError(f"log=yes needs every y above 0; row {row} has {yv[row - 1]:g}",
                              ModelErrorKind.DATA)
         yu = np.log(yu)
-    core = solve(xu, yu, wu, spec)
+    # solve on y and weights divided by powers of two (exact), so no sum of squares leaves
+    # the double range whatever the data's units; the result is scaled back at the end
+    sy, cw = inference.response_scale(yu), inference.weight_scale(wu)
+    ys = yu / sy
+    ws = None if wu is None else wu / cw
+    core = solve(xu, ys, ws, spec)
     iterations = 0
+    w_true, w_ratio = wu, cw
     if error == "percent":
-        core, wu, iterations = _percent_error_fit(xu, yu, wu, spec, core)
+        core, ws, iterations = _percent_error_fit(xu, ys, ws, spec, core)
+        w_ratio = cw / sy / sy  # weights 1 / fitted^2 on the scaled response
+        w_true = ws * w_ratio
+        if not (np.isfinite(w_ratio) and w_ratio > 0 and np.all(np.isfinite(w_true))
+                and np.all(w_true > 0)):
+            raise ModelError("error=percent weights each row by 1/fitted^2, which leaves the "
+                             "double range for y this large or small; rescale y (e.g. work "
+                             "in thousands, millions or other units)", ModelErrorKind.SCALE)
         notes.append(f"multiplicative (percent) error fit: weights 1/fitted^2, converged in "
                      f"{iterations} reweighting steps; rmse is the standard percent error as "
                      "a fraction of the fitted value, so a new observation's prediction "
                      f"interval uses rmse x fitted ({STATS_DOC})")
     smearing = 1.0
     if log:
-        smearing = float(np.mean(np.exp(core.residuals)))
+        smearing = float(np.mean(np.exp(core.residuals * sy)))
         notes.append(f"fitted on ln(y): coefficients and fit statistics are on the log scale "
                      "(rmse_percent is in units of y); the mean and its interval are "
                      f"back-transformed with Duan's smearing factor {smearing:.6g}, the "
@@ -253,7 +267,12 @@ def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, erro
                      f"reference distributions ({STATS_DOC})")
     remedy = Remedy(se=se, log=log, error=error, smearing=smearing, iterations=iterations,
                     notes=tuple(notes))
-    return inference.build(spec, core, xu, yu, wu, level, used, n_dropped, response, remedy)
+    res = inference.build(spec, core, xu, ys, ws, level, used, n_dropped, response, remedy)
+    res = inference.rescale(res, sy, w_true, w_ratio)
+    if not all(math.isfinite(v) for c in res.coefficients
+               for v in (c.estimate, c.std_error, c.ci_lower, c.ci_upper)):
+        raise ModelError(too_large(yu, xu), ModelErrorKind.SCALE)
+    return res
 
 
 #: Reweighting stops when no raw coefficient moves by more than this, relative to its size.

@@ -86,14 +86,15 @@ def _whitened(res: FitResult) -> np.ndarray:
 def _influence(res: FitResult):
     """Internally and externally studentized residuals, Cook's D, Bonferroni p (rows used)."""
     n, p = res.stats.n_used, res.stats.n_params
-    e = _whitened(res)
+    e = _whitened(res) / res.y_scale  # in units where its squares cannot leave the range
     h = res.leverage
-    s2 = res.stats.sse / (n - p)
+    sse = float(e @ e)
+    s2 = sse / (n - p)
     with np.errstate(divide="ignore", invalid="ignore"):
         one_h = 1.0 - h
         internal = e / np.sqrt(s2 * one_h)
         dof = n - p - 1
-        s2_del = (res.stats.sse - e * e / one_h) / dof if dof > 0 else np.full(n, np.nan)
+        s2_del = (sse - e * e / one_h) / dof if dof > 0 else np.full(n, np.nan)
         external = e / np.sqrt(s2_del * one_h)
         cooks = internal**2 * h / (p * one_h)
         bonf = np.minimum(1.0, n * t_pvalue(external, dof)) if dof > 0 else np.full(n, np.nan)

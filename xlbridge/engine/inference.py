@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 
 from .dist import f_pvalue, t_pvalue, t_quantile
 from .result import CenteredForm, Coefficient, FitResult, FitStats, Note, NoteKind, Remedy
-from .solve import Core, choose_basis, monomials
+from .solve import Core, choose_basis, monomials, power_of_two_scale
 from .terms import ModelSpec, term_label
 
 
@@ -235,3 +236,70 @@ def _top_term_p(spec: ModelSpec, b: np.ndarray, cov: np.ndarray, df: int) -> flo
     if math.isinf(f):
         return 0.0
     return f_pvalue(f, len(idx), df)
+
+
+def response_scale(y: np.ndarray) -> float:
+    """The power of two at or above max |y| (1 for all-zero y): dividing by it is exact and
+    keeps sums of squares of the response inside the double range whatever its units."""
+    top = float(np.max(np.abs(y))) if len(y) else 0.0
+    return float(power_of_two_scale(np.array([top]))[0])
+
+
+def weight_scale(w: np.ndarray | None) -> float:
+    """A power of four near max w (1 without weights): exact to divide by, and its square
+    root (a power of two) rescales the residual SD exactly."""
+    if w is None or not len(w):
+        return 1.0
+    e = int(np.frexp(float(np.max(w)))[1])
+    return math.ldexp(1.0, e + (e % 2))
+
+
+def rescale(res: FitResult, y_scale: float, weights: np.ndarray | None,
+            w_ratio: float) -> FitResult:
+    """The result of a fit solved on y / y_scale with weights w / w_ratio, in the data's
+    units: estimates, errors and intervals times y_scale (exact, a power of two); t, p, R^2,
+    F and VIFs unchanged. ``cov`` and ``scaled_cov`` are in the data's units unless that
+    would underflow or overflow; then they stay in units of y_scale^2 (``FitResult.y_scale``,
+    1 otherwise)."""
+    sy, g = y_scale, w_ratio
+    coefs = tuple(replace(c, estimate=c.estimate * sy, std_error=c.std_error * sy,
+                          ci_lower=c.ci_lower * sy, ci_upper=c.ci_upper * sy)
+                  for c in res.coefficients)
+    st = res.stats
+    ss = g * sy * sy
+    n = st.n_used
+    rmse = st.rmse * math.sqrt(g) * sy
+    if res.remedy.log or res.remedy.error == "percent":
+        pct = rmse_percent(rmse, float(np.mean(res.y)) * sy, res.remedy)
+    else:
+        pct = st.rmse_percent * math.sqrt(g)
+    shift = 2 * n * math.log(sy)
+    with np.errstate(over="ignore", under="ignore"):
+        stats = replace(st, sse=st.sse * ss, sst=st.sst * ss, press=st.press * ss, rmse=rmse,
+                        rmse_percent=pct, aic=st.aic + shift, bic=st.bic + shift)
+    cen = res.centered
+    centered = replace(cen, estimates=tuple(v * sy for v in cen.estimates),
+                       std_errors=tuple(v * sy for v in cen.std_errors))
+    cov, scaled_cov, keep = res.cov, res.scaled_cov, sy
+    with np.errstate(over="ignore", under="ignore"):
+        if _in_range(cov, sy) and _in_range(scaled_cov, sy):  # the usual case: data's units
+            cov, scaled_cov, keep = cov * sy * sy, scaled_cov * sy * sy, 1.0
+        scaled_inv = res.scaled_inv / g
+    return replace(res, coefficients=coefs, stats=stats, centered=centered,
+                   fitted=res.fitted * sy, residuals=res.residuals * sy,
+                   scaled_coef=res.scaled_coef * sy, scaled_inv=scaled_inv, cov=cov,
+                   scaled_cov=scaled_cov, weights=weights,
+                   max_data_leverage_form=res.max_data_leverage_form / g,
+                   y=res.y * sy, y_scale=keep)
+
+
+#: Covariances are written in the data's units while every variance stays between these
+#: (so standard errors and their products keep full precision), else in units of y_scale^2.
+_COV_RANGE = (1e-280, 1e280)
+
+
+def _in_range(cov: np.ndarray, sy: float) -> bool:
+    d = np.abs(np.diag(cov))
+    d = d[d != 0] * sy * sy
+    return bool(np.all(np.isfinite(cov * sy * sy)) and np.all(d > _COV_RANGE[0])
+                and np.all(d < _COV_RANGE[1]))

@@ -143,6 +143,7 @@ def _poly_optimum(res: FitResult, q: float) -> Optimum:
         for j in range(1, d + 1):
             if (j,) in idx:
                 grad[idx[(j,)]] = -j * t ** (j - 1) / curv if curv != 0 else math.nan
+        grad *= res.y_scale  # scaled_cov is in units of y_scale^2
         var_t = float(grad @ res.scaled_cov @ grad)
         xs = center + s * t
         se = s * math.sqrt(var_t) if var_t >= 0 else math.nan
@@ -219,6 +220,7 @@ def _surface_optimum(res: FitResult, q: float) -> Optimum:
         else:
             dB[i, j] = dB[j, i] = 0.5
         jac[:, pos] = -binv @ (dB @ ts)
+    jac = jac * res.y_scale  # scaled_cov is in units of y_scale^2
     cov_t = jac @ res.scaled_cov @ jac.T
     scales, centers = res.basis.scales, res.basis.centers
     xs = centers + scales * ts
@@ -327,7 +329,7 @@ def slopes(res: FitResult, at_x, level: float | None = None) -> Slopes:
             grad = mean[:, None] * (design * val[:, None] + dcols)
             val = mean * val
         slope[:, j] = val
-        se[:, j] = np.sqrt(np.einsum("ij,jk,ik->i", grad, cov, grad))
+        se[:, j] = np.sqrt(np.einsum("ij,jk,ik->i", grad, cov, grad)) * res.y_scale
     form = design_form(res, x0)
     return Slopes(res.spec.predictors, x0, slope, se, slope - q * se, slope + q * se,
                   extrapolates(res, x0, form), level)

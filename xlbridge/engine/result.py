@@ -185,18 +185,22 @@ class FitResult:
     used: np.ndarray
     x_min: np.ndarray
     x_max: np.ndarray
-    cov: np.ndarray  # raw-unit covariance of the estimates
+    cov: np.ndarray  # raw-unit covariance of the estimates / y_scale^2
     method: str  # solve path: "qr", "cholesky", "refined" or "exact" (see solve.solve)
     response: str
     basis: Basis
     scaled_coef: np.ndarray
     scaled_inv: np.ndarray  # (T'WT)^-1, scaled basis: leverages
-    scaled_cov: np.ndarray  # covariance of scaled_coef (OLS or robust)
+    scaled_cov: np.ndarray  # covariance of scaled_coef (OLS or robust) / y_scale^2
     weights: np.ndarray | None
     max_data_leverage_form: float
     remedy: Remedy
     x: np.ndarray  # predictor rows used
     y: np.ndarray  # response used (ln y when remedy.log)
+    #: A power of two: ``cov`` and ``scaled_cov`` are the covariances divided by its square,
+    #: so they stay inside the double range for responses of any size (1, the data's own
+    #: units, unless a variance would fall outside 1e-280..1e280).
+    y_scale: float = 1.0
 
     @property
     def terms(self) -> tuple[str, ...]:
@@ -263,13 +267,13 @@ class FitResult:
         eta = t0 @ self.scaled_coef
         form = design_form(self, x0)
         var_m = np.einsum("ij,jk,ik->i", t0, self.scaled_cov, t0)
-        factor = variance_factor(self, eta, weights)
+        root = sd_factor(self, eta, new_weights(weights, len(eta)))
         s = self.stats.rmse
         q = t_quantile(self.stats.df_resid, level)
-        se_m = np.sqrt(var_m)
-        se_p = np.sqrt(s * s * factor + var_m)
-        with np.errstate(divide="ignore"):
-            lev = form / factor
+        se_m = np.sqrt(np.clip(var_m, 0, None)) * self.y_scale
+        se_p = np.hypot(s * root, se_m)  # no square leaves the double range
+        with np.errstate(divide="ignore", over="ignore"):
+            lev = form / root / root
         lo_m, hi_m, lo_p, hi_p = eta - q * se_m, eta + q * se_m, eta - q * se_p, eta + q * se_p
         fitted = eta
         if self.remedy.log:
@@ -346,22 +350,29 @@ def variance_factor(res: FitResult, eta: np.ndarray, weights=None) -> np.ndarray
     """Variance of a new observation in units of s^2 under the fit's error model: 1 / w0,
     times fitted0^2 for percent error (``eta`` is the fitted value on the fit's scale);
     ``weights`` w0 default to 1 and must be positive."""
-    m = len(eta)
+    return sd_factor(res, eta, new_weights(weights, len(eta))) ** 2
+
+
+def new_weights(weights, m: int) -> np.ndarray:
+    """Weights w0 of m new points (default 1); ModelError unless all are positive."""
     if weights is None:
-        w0 = np.ones(m)
-    else:
-        try:
-            w0 = np.broadcast_to(np.asarray(weights, dtype=float).ravel(), (m,)).copy()
-        except (TypeError, ValueError):
-            raise ModelError(f"weights of the new points must be one positive number or one "
-                             f"per point ({m})", ModelErrorKind.DATA) from None
-        if not np.all(np.isfinite(w0) & (w0 > 0)):
-            raise ModelError("weights of the new points must be positive numbers",
-                             ModelErrorKind.DATA)
-    factor = 1.0 / w0
-    if res.remedy.error == "percent":
-        factor = factor * eta * eta
-    return factor
+        return np.ones(m)
+    try:
+        w0 = np.broadcast_to(np.asarray(weights, dtype=float).ravel(), (m,)).copy()
+    except (TypeError, ValueError):
+        raise ModelError(f"weights of the new points must be one positive number or one "
+                         f"per point ({m})", ModelErrorKind.DATA) from None
+    if not np.all(np.isfinite(w0) & (w0 > 0)):
+        raise ModelError("weights of the new points must be positive numbers",
+                         ModelErrorKind.DATA)
+    return w0
+
+
+def sd_factor(res: FitResult, eta: np.ndarray, w0: np.ndarray) -> np.ndarray:
+    """The square root of ``variance_factor`` for new weights ``w0``, without squaring
+    fitted values (which can leave the double range where their square root does not)."""
+    root = 1.0 / np.sqrt(w0)
+    return root * np.abs(eta) if res.remedy.error == "percent" else root
 
 
 def extrapolates(res: FitResult, x0: np.ndarray, form: np.ndarray) -> np.ndarray:

@@ -121,17 +121,63 @@ def power_of_two_scale(spread: np.ndarray) -> np.ndarray:
 
 
 def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Basis:
-    """Center each predictor at its (weighted) mean where the model allows it."""
+    """Center each predictor at its (weighted) mean where the model allows it; a column no
+    term uses keeps center 0 and scale 1, so its values never matter."""
     centrable = spec.centrable()
+    used = [any(q[j] for q in spec.all_powers) for j in range(x.shape[1])]
     centers = np.zeros(x.shape[1])
     scales = np.ones(x.shape[1])
     for j in range(x.shape[1]):
         col = x[:, j]
-        if centrable[j]:
-            centers[j] = np.average(col, weights=w)
-        spread = float(np.max(np.abs(col - centers[j]))) if len(col) else 0.0
+        if not used[j] or not len(col):
+            continue
+        pre = float(power_of_two_scale(np.array([np.max(np.abs(col))]))[0])
+        if centrable[j]:  # the mean of col / pre (exact) cannot overflow
+            centers[j] = np.average(col / pre, weights=w) * pre
+        with np.errstate(over="ignore"):
+            spread = float(np.max(np.abs(col / pre - centers[j] / pre))) * pre
+        if not np.isfinite(spread):
+            raise ModelError(f"{spec.predictors[j]} spans more than the double range "
+                             f"(values up to {float(np.max(np.abs(col))):.3g}); rescale it, "
+                             "e.g. divide it by 1e300", ModelErrorKind.SCALE)
         scales[j] = power_of_two_scale(spread)
     return Basis(centers, scales, spec.all_powers)
+
+
+#: Every term of the model, in raw units, must stay within 10^+-TERM_RANGE over the rows
+#: used, and each coefficient's natural size (largest |y| over largest |term|) within
+#: 10^+-COEF_RANGE: beyond them products overflow or coefficients lose digits as subnormal
+#: numbers (the smallest normal double is about 2.2e-308).
+TERM_RANGE = 300
+COEF_RANGE = 305
+
+
+def check_terms(x: np.ndarray, y: np.ndarray, spec: ModelSpec) -> None:
+    """ModelError(SCALE) naming the first term whose raw column, or whose coefficient, would
+    leave the double range, and how to rescale; computed from logarithms, so nothing
+    overflows on the way. Columns no term uses are not looked at."""
+    if not len(x):
+        return
+    with np.errstate(divide="ignore"):
+        top = np.log10(np.max(np.abs(x), axis=0))
+        ytop = float(np.log10(np.max(np.abs(y)))) if len(y) else -np.inf
+    for q, label in zip(spec.powers, spec.terms[int(spec.intercept):]):
+        idx = [j for j, e in enumerate(q) if e]
+        if any(top[j] == -np.inf for j in idx):
+            continue  # a zero column: the alias check names it
+        mag = float(sum(q[j] * top[j] for j in idx))
+        big = max(idx, key=lambda j: abs(top[j]))
+        name = spec.predictors[big]
+        hint = f"divide {name} by 1e{round(top[big])}" if top[big] > 0 else \
+            f"multiply {name} by 1e{-round(top[big])}"
+        if abs(mag) > TERM_RANGE:
+            raise ModelError(f"term {label} reaches about 1e{mag:.0f} ({name} up to "
+                             f"{10.0 ** top[big]:.3g}), outside the range double precision "
+                             f"can compute with; rescale: {hint}", ModelErrorKind.SCALE)
+        if np.isfinite(ytop) and abs(ytop - mag) > COEF_RANGE:
+            raise ModelError(f"the coefficient of {label} would be about 1e{ytop - mag:.0f}, "
+                             "outside the range double precision can hold; rescale y or "
+                             f"{name} (e.g. {hint})", ModelErrorKind.SCALE)
 
 
 @dataclass(frozen=True)
@@ -238,7 +284,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
     del an
     b = bn / norms
     if not (np.all(np.isfinite(b)) and np.all(np.isfinite(resid_w))):
-        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
+        raise ModelError(too_large(y, x), ModelErrorKind.SCALE)
     outer = np.outer(norms, norms)
     inv_scaled = inv_n / outer
     gram = (r_fac.T @ r_fac) * outer
@@ -252,7 +298,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
     sse = float(np.sum(resid_w * resid_w))
     sst = weighted_sst(y, w) if spec.intercept else float(np.sum(z * z))
     if not (np.isfinite(sse) and np.isfinite(sst) and np.all(np.isfinite(inv_raw))):
-        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
+        raise ModelError(too_large(y, x), ModelErrorKind.SCALE)
 
     bound = _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
                          sst)
@@ -275,7 +321,7 @@ def _raw_coef(m_hi, m_lo, b_hi, b_lo, y, x) -> np.ndarray:
     hi, lo = map_pair(m_hi, m_lo, b_hi, b_lo)
     beta = hi + lo
     if not np.all(np.isfinite(beta)):
-        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE)
+        raise ModelError(too_large(y, x), ModelErrorKind.SCALE)
     return beta
 
 
@@ -390,7 +436,8 @@ def _r2_error(rel_sse: float, rel_sst: float, sse: float, sst: float) -> float:
     return (rel_sse + rel_sst) * (sse / sst) / max(1 - sse / sst, 0.5)
 
 
-def _too_large(y: np.ndarray, x: np.ndarray) -> str:
+def too_large(y: np.ndarray, x: np.ndarray) -> str:
+    """The message for data whose numbers leave the double range in the fit."""
     vals = np.abs(np.concatenate([np.ravel(y), np.ravel(x)]))
     vals = vals[np.isfinite(vals) & (vals > 0)]
     lo, hi = (float(vals.min()), float(vals.max())) if vals.size else (0.0, 0.0)
@@ -403,7 +450,7 @@ def _exact(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
     try:
         return _exact_core(x, y, w, spec, basis, core)
     except OverflowError:
-        raise ModelError(_too_large(y, x), ModelErrorKind.SCALE) from None
+        raise ModelError(too_large(y, x), ModelErrorKind.SCALE) from None
 
 
 def _exact_core(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
