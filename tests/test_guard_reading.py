@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 import xlbridge
@@ -114,3 +115,23 @@ def test_many_rows_left_out_warns(tmp_path: Path, capsys) -> None:
                        capsys)
     assert code == 0
     assert "xlbridge: warning: 9 of 30 rows (30 %) were left out" in err
+
+
+def test_dataframe_text_follows_the_cells_rule() -> None:
+    # a DataFrame column holding a number stored as text and a word: the API reads the
+    # number and leaves the word's row out, as the cells (and so the command line) do
+    pd = pytest.importorskip("pandas")
+    rows = _rows(text_rows=(5,))
+    rows[9][1] = "n/a"
+    df = pd.DataFrame(rows[1:], columns=rows[0])
+    got = xlbridge.fit(df["cost"], df[["size"]], 2)
+    res, _ = cells.fit_cells([r[1] for r in rows], [r[0] for r in rows], 2)
+    size, cost = invented_cost_data(N)
+    keep = np.arange(N) != 8
+    want = xlbridge.fit(cost[keep], size[keep], 2)  # plain numbers, the row left out
+    np.testing.assert_array_equal(got.estimates, want.estimates)
+    np.testing.assert_array_equal(res.estimates, want.estimates)
+    assert got.n_dropped == res.n_dropped == 1
+    assert "y: 1 number stored as text was read: row 6" in got.notes
+    assert "y: row 9 holds text that is not a number and was left out" in got.notes
+    assert "1 number stored as text was read: data row 6" in res.notes

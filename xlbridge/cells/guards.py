@@ -15,6 +15,7 @@ from typing import Any
 
 import numpy as np
 
+from ..engine.numtext import text_numbers_note as numbers_note
 from .values import grid_of
 
 __all__ = ["TOTAL_WORDS", "RowNamer", "sheet_row", "sheet_rows_text", "DROP_SHARE",
@@ -132,9 +133,8 @@ def totals_note(rows: Sequence[int], why: str, namer: RowNamer) -> str:
 
 
 def text_numbers_note(rows: Sequence[int], count: int, namer: RowNamer) -> str:
-    """``"2 numbers stored as text were read: rows 7, 12"``."""
-    return (f"{count} number{'s' if count != 1 else ''} stored as text "
-            f"{'were' if count != 1 else 'was'} read: {namer.names(rows)}")
+    """``"2 numbers stored as text were read: sheet rows 7 and 12"``."""
+    return numbers_note(count, namer.names(rows))
 
 
 def drop_share_note(dropped: int, total: int) -> str:

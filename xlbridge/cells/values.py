@@ -33,7 +33,6 @@ from __future__ import annotations
 import datetime as dt
 import math
 import numbers
-import re
 from dataclasses import dataclass
 from itertools import chain
 from typing import Any
@@ -41,6 +40,7 @@ from typing import Any
 import numpy as np
 
 from ..book.values import bounded_name, is_error_code, is_error_text, serial_of
+from ..engine.numtext import number_of_text
 from .errors import CellError, CellErrorKind
 from .options import Options, parse_options
 
@@ -59,8 +59,6 @@ _REASON = {BLANK: "blank", BOOL: "true/false", TEXT: "text", NONFINITE: "not fin
 # a number stored as text is read as that number (one rule for every reader and the API);
 # the cell's code says so until clean_cells records it and makes it OK
 TEXT_NUMBER = -1
-# Python's float syntax without nan/inf words or underscores: what a person types as a number
-_NUMBER_TEXT = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
 
 
 def _number(v: float) -> tuple[float, int]:
@@ -88,8 +86,9 @@ def _cell(v: Any) -> tuple[float, int]:
         s = v.strip()
         if not s:
             return math.nan, BLANK
-        if _NUMBER_TEXT.fullmatch(s):
-            value, code = _number(float(s))
+        num = number_of_text(s)  # the one rule for numbers stored as text
+        if num is not None:
+            value, code = _number(num)
             return value, TEXT_NUMBER if code == OK else code
         return math.nan, ERROR if is_error_text(s) else TEXT
     if isinstance(v, (dt.date, dt.time)):

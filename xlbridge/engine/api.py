@@ -9,6 +9,7 @@ import numpy as np
 from . import cer, inference
 from .cerresult import CerResult
 from .errors import ModelError, ModelErrorKind, check_level, distinct_shortage
+from .numtext import number_of_text, rows_text, text_numbers_note
 from .result import FitResult, Remedy
 from .solve import check_terms, solve, too_large
 from .terms import parse_model
@@ -32,8 +33,17 @@ def names_of(obj) -> tuple[str, ...] | None:
 
 def arrays(y, x, weights=None) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """y as (n,), x as (n, k) and weights as (n,) float arrays, shapes checked."""
-    yv = _as_float(y, "y")
-    xv = _as_float(x, "x")
+    return read_arrays(y, x, weights)[:3]
+
+
+def read_arrays(y, x, weights=None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, tuple[str, ...]]:
+    """``arrays`` and the notes of reading them: text among the values follows the rule of
+    ``engine.numtext`` (numbers stored as text are read and counted, other text leaves its
+    row out, as in the cells), so a DataFrame column of text fits as its cells would."""
+    texts: list[str] = []
+    yv = _as_float(y, "y", texts)
+    xv = _as_float(x, "x", texts)
     if yv.ndim == 2 and 1 in yv.shape:
         yv = yv.ravel()
     if yv.ndim != 1:
@@ -48,10 +58,10 @@ def arrays(y, x, weights=None) -> tuple[np.ndarray, np.ndarray, np.ndarray | Non
         raise ModelError(f"y has {len(yv)} rows but x has {xv.shape[0]} rows", ModelErrorKind.DATA)
     wv = None
     if weights is not None:
-        wv = _as_float(weights, "weights").ravel()
+        wv = _as_float(weights, "weights", texts).ravel()
         if len(wv) != len(yv):
             raise ModelError(f"weights has {len(wv)} rows but y has {len(yv)}", ModelErrorKind.DATA)
-    return yv, xv, wv
+    return yv, xv, wv, tuple(texts)
 
 
 def _few_distinct(col: np.ndarray, need: int) -> bool:
@@ -64,12 +74,50 @@ def _few_distinct(col: np.ndarray, need: int) -> bool:
     return True
 
 
-def _as_float(a, what: str) -> np.ndarray:
+def _as_float(a, what: str, notes: list[str] | None = None) -> np.ndarray:
+    try:
+        raw = np.asarray(a)
+        if raw.dtype.kind in "US" and not isinstance(a, np.ndarray):
+            raw = np.asarray(a, dtype=object)  # a list's numbers stay numbers, not text
+    except (TypeError, ValueError):
+        raise ModelError(f"{what} must hold numbers only", ModelErrorKind.DATA) from None
+    if raw.dtype.kind in "OUS" and any(isinstance(v, str) for v in raw.ravel()):
+        return _from_text(raw, what, notes)
     try:
         arr = np.asarray(a, dtype=float)
     except (TypeError, ValueError):
         raise ModelError(f"{what} must hold numbers only", ModelErrorKind.DATA) from None
     return arr
+
+
+def _from_text(raw: np.ndarray, what: str, notes: list[str] | None) -> np.ndarray:
+    """Values some of which are text, as floats by the rule of ``engine.numtext``."""
+    out = np.empty(raw.shape, dtype=float)
+    read = np.zeros(raw.shape, dtype=bool)
+    other = np.zeros(raw.shape, dtype=bool)
+    for i, v in np.ndenumerate(raw):
+        if isinstance(v, str):
+            num = number_of_text(v)
+            read[i], other[i] = num is not None, num is None and bool(v.strip())
+            out[i] = np.nan if num is None else num
+            continue
+        try:
+            out[i] = np.nan if v is None else float(v)
+        except (TypeError, ValueError):
+            raise ModelError(f"{what} must hold numbers only", ModelErrorKind.DATA) from None
+
+    def by_row(m: np.ndarray) -> np.ndarray:
+        m = np.atleast_1d(m)
+        return np.flatnonzero(m.reshape(m.shape[0], -1).any(axis=1)) + 1
+
+    if notes is not None and read.any():
+        notes.append(f"{what}: " + text_numbers_note(int(read.sum()), rows_text(by_row(read))))
+    if notes is not None and other.any():
+        rows = by_row(other)
+        one = len(rows) == 1
+        notes.append(f"{what}: {rows_text(rows)} {'holds' if one else 'hold'} text that is "
+                     f"not a number and {'was' if one else 'were'} left out")
+    return out
 
 
 def fit(
@@ -173,7 +221,7 @@ def fit(
         names = names_of(x)
     response = names_of(y)
     response = response[0] if response else "y"
-    yv, xv, wv = arrays(y, x, weights)
+    yv, xv, wv, text_notes = read_arrays(y, x, weights)
     try:
         spec = parse_model(model, xv.shape[1], tuple(names) if names is not None else None,
                            intercept=bool(intercept), forms=cer.FORMS)
@@ -218,11 +266,12 @@ def fit(
     # overflow in extreme data is detected and reported as a message, not a warning
     with np.errstate(over="ignore", invalid="ignore"):
         return _fit_clean(spec, xu, yu, wu, float(level), used, n_dropped, response, se,
-                          bool(log), error, yv)
+                          bool(log), error, yv, text_notes)
 
 
-def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, error, yv):
-    notes: list[str] = []
+def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, error, yv,
+               text_notes=()):
+    notes: list[str] = list(text_notes)
     if wu is not None:
         notes.append("weighted fit: rmse is the error SD of an observation of weight 1, and "
                      "prediction intervals assume a new observation of weight 1 unless its "
