@@ -18,9 +18,7 @@ CAPTIONS = {
 
 
 def _axes():
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=plots.SIZE, dpi=plots.DPI, layout="constrained")
+    fig = plots.figure_class()(figsize=plots.SIZE, dpi=plots.DPI, layout="constrained")
     return fig, fig.add_subplot()
 
 

@@ -85,11 +85,12 @@ def run_demo(out: str | Path = "xlbridge-demo", *, force: bool = False) -> str:
     from .book.reader import open_book
     from .cells import models as model_cells
     from .engine import CerResult
-    from .plots import write_figures
+    from .plots import figure_class, write_figures
     from .report import Source, write_report
     from .runner.recalc import evaluate_book
     from .runner.write import write_copy
 
+    figure_class()  # without matplotlib, say how to add it before writing anything
     start = time.perf_counter()
     out = Path(out)
     _prepare(out, force)

@@ -23,10 +23,27 @@ CURVE = "#c0392b"
 BAND_MEAN = "#f5b7b1"
 BAND_NEW = "#fdebd0"
 
+#: How to add matplotlib, the one library the figures need (the ``plots`` extra).
+PLOTS_EXTRA = 'in the xlbridge folder, run: python -m pip install ".[plots]"'
+
+
+class PlotsUnavailable(RuntimeError):
+    """matplotlib (the ``plots`` extra) is not installed; the message says how to add it."""
+
+
+def figure_class() -> type:
+    """matplotlib's ``Figure``; :class:`PlotsUnavailable` when matplotlib is missing.
+    Called before anything is written, so a run without it leaves no half output."""
+    try:
+        from matplotlib.figure import Figure
+    except ImportError:
+        raise PlotsUnavailable("figures and reports need matplotlib, which is not installed; "
+                               + PLOTS_EXTRA) from None
+    return Figure
+
 
 def _figure(size=SIZE):
-    from matplotlib.figure import Figure
-
+    Figure = figure_class()
     fig = Figure(figsize=size, dpi=DPI, layout="constrained")
     return fig, fig.add_subplot()
 

@@ -1,10 +1,11 @@
-""".xlsx/.xlsm workbooks: values through python-calamine, the rest from the archive.
+""".xlsx/.xlsm workbooks: values through python-calamine or openpyxl, the rest from the archive.
 
-Values come from python-calamine (measured about 14x faster than openpyxl read-only on a
-100,000-row sheet, start-up included); the few facts calamine does not report (which cells
-hold error values, which formulas have no saved value, defined names, table layouts) come
-from small targeted reads of the archive's XML parts, parsed with defusedxml.  openpyxl is
-not used here: it is needed only for writing.
+Values come from python-calamine when it is installed (the ``cli`` extra; measured about 14x
+faster than openpyxl read-only on a 100,000-row sheet, start-up included), else from
+openpyxl's read-only reader, which gives the same values (``tests/test_fallback_reader.py``)
+and installs everywhere, the browser Python included.  The few facts neither reports
+(which cells hold error values, which formulas have no saved value, defined names, table
+layouts) come from small targeted reads of the archive's XML parts, parsed with defusedxml.
 """
 
 from __future__ import annotations
@@ -26,7 +27,49 @@ from xlbridge.book.sheetscan import (
 from xlbridge.book.values import MAX_NAME_CHARS
 from xlbridge.book.workbook import Book, SheetData, Structure, TableInfo
 
-__all__ = ["XlsxBook", "part_relations", "read_structure", "workbook_part"]
+__all__ = ["XlsxBook", "fast_reader", "part_relations", "read_structure", "workbook_part"]
+
+
+def fast_reader() -> Any | None:
+    """The python-calamine module when it is installed (the ``cli`` extra), else None."""
+    try:
+        import python_calamine
+    except ImportError:
+        return None
+    return python_calamine
+
+
+def _open_values(source: Path | io.BytesIO) -> Any:
+    """A reader of saved cell values: calamine's workbook, or openpyxl's read-only one."""
+    pc = fast_reader()
+    if pc is not None:
+        if isinstance(source, Path):
+            return pc.CalamineWorkbook.from_path(str(source))
+        return pc.CalamineWorkbook.from_filelike(source)
+    import openpyxl
+
+    return openpyxl.load_workbook(source, read_only=True, data_only=True, keep_links=False)
+
+
+def _worksheet_names(values: Any) -> list[str]:
+    if hasattr(values, "sheets_metadata"):
+        return ([m.name for m in values.sheets_metadata if str(m.typ).endswith("WorkSheet")]
+                or list(values.sheet_names))
+    return [ws.title for ws in values.worksheets]
+
+
+def _grid(values: Any, name: str, scan: SheetScan | None) -> list[list[Any]]:
+    """A sheet's rows from A1 as the reader gives them ("" or None for a blank)."""
+    if hasattr(values, "sheets_metadata"):  # python-calamine
+        return values.get_sheet_by_name(name).to_python(skip_empty_area=False)
+    ws = values[name]
+    ws.reset_dimensions()  # the stored dimension may be wrong; the scan counted the cells
+    if scan is None:
+        return [list(r) for r in ws.iter_rows(min_row=1, min_col=1, values_only=True)]
+    if scan.last_row == 0:
+        return []
+    return [list(r) for r in ws.iter_rows(min_row=1, min_col=1, max_row=scan.last_row,
+                                          max_col=scan.last_col, values_only=True)]
 
 
 # --- workbook structure from the archive --------------------------------------------------
@@ -155,12 +198,9 @@ class XlsxBook(Book):
         check_archive(path)
         with reader_guard(path.name), zipfile.ZipFile(path) as zf:
             structure = read_structure(zf, path.name)
-        import python_calamine as pc
-
         with reader_guard(path.name):
-            self._cal = pc.CalamineWorkbook.from_path(str(path))
-            sheets = [m.name for m in self._cal.sheets_metadata
-                      if str(m.typ).endswith("WorkSheet")] or list(self._cal.sheet_names)
+            self._values = _open_values(path)
+            sheets = _worksheet_names(self._values)
         if not sheets:
             raise BookError(f"{path.name} has no worksheets")
         self._scans: dict[str, SheetScan] = {}
@@ -189,7 +229,7 @@ class XlsxBook(Book):
         scan = self.sheet_scan(name)
         if scan is None or scan.block_cells <= MAX_BLOCK_CELLS:
             with reader_guard(self.path.name, name):
-                grid = self._cal.get_sheet_by_name(name).to_python(skip_empty_area=False)
+                grid = _grid(self._values, name, scan)
             sh = SheetData(name, grid)
         else:
             sh = self._load_columns(name, scan, last_col)
@@ -219,10 +259,11 @@ class XlsxBook(Book):
                         out.writestr(info.filename, kept if info.filename == part
                                      else zf.read(info))
             buf.seek(0)
-            import python_calamine as pc
-
-            with pc.CalamineWorkbook.from_filelike(buf) as cal:
-                grid = cal.get_sheet_by_name(name).to_python(skip_empty_area=False)
+            values = _open_values(buf)
+            try:
+                grid = _grid(values, name, window)
+            finally:
+                values.close()
         return SheetData(name, grid, cols_read=need)
 
     def _too_large(self, name: str, data: bytes, scan: SheetScan) -> BookError:
@@ -240,6 +281,6 @@ class XlsxBook(Book):
     def close(self) -> None:
         super().close()
         try:
-            self._cal.close()
+            self._values.close()
         except Exception:
             pass

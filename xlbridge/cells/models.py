@@ -260,7 +260,7 @@ def plot_input(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> Pl
 
 def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> FitFigure:
     """Build one figure of the fit (for ``degrees``, ``model`` is the highest degree)."""
-    from ..plots import contour, curve, degree_scan, influence, normal_quantiles
+    from ..plots import PlotsUnavailable, contour, curve, degree_scan, influence, normal_quantiles
     from ..plots import residuals as residual_plot
 
     p = plot_input(y, x, model, kind, options)
@@ -280,4 +280,6 @@ def plot_figure(y: Any, x: Any, model: Any, kind: Any, options: Any = None) -> F
                    "influence": influence}[k](res)
     except ModelError as exc:
         raise CellError.from_model(exc) from None
+    except PlotsUnavailable as exc:  # the plots extra is missing: say how to add it
+        raise CellError(str(exc), CellErrorKind.RESULT) from None
     return FitFigure(k, fig.axes[0].get_title(), fig)

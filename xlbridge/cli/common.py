@@ -242,29 +242,41 @@ def warn(text: str) -> None:
 
 
 class Progress:
-    """A rich progress bar on a terminal for long runs; nothing otherwise."""
+    """A progress bar on a terminal for long runs (rich's, or one plain line rewritten in
+    place when rich, of the ``cli`` extra, is not installed); nothing otherwise."""
 
     def __init__(self, what: str) -> None:
         self.what = what
         self.bar: Any = None
         self.task: Any = None
+        self.plain = False  # the plain line is showing
         self.enabled = sys.stderr.isatty()  # the bar goes to stderr; stdout may be a file
 
     def __call__(self, done: int, total: int, label: str) -> None:
         if not self.enabled or total < 10:
             return
-        if self.bar is None:
-            from rich.console import Console
-            from rich.progress import Progress as Bar
-
-            self.bar = Bar(transient=True, console=Console(stderr=True))
-            self.bar.start()
-            self.task = self.bar.add_task(self.what, total=total)
-        self.bar.update(self.task, completed=done, description=f"{self.what} {label}")
+        if self.bar is None and not self.plain:
+            try:
+                from rich.console import Console
+                from rich.progress import Progress as Bar
+            except ImportError:
+                self.plain = True
+            else:
+                self.bar = Bar(transient=True, console=Console(stderr=True))
+                self.bar.start()
+                self.task = self.bar.add_task(self.what, total=total)
+        if self.plain:
+            sys.stderr.write(f"\r\033[K{self.what} {label} {done}/{total}")
+            sys.stderr.flush()
+        else:
+            self.bar.update(self.task, completed=done, description=f"{self.what} {label}")
 
     def close(self) -> None:
         if self.bar is not None:
             self.bar.stop()
+        if self.plain:  # clear the line, as rich's transient bar does
+            sys.stderr.write("\r\033[K")
+            sys.stderr.flush()
 
 
 # --- reading the data of a fit ----------------------------------------------------------------

@@ -47,9 +47,21 @@ def _scan(f: Fitted, max_degree: int) -> Any:
                             weights=inp.weights, **inp.options.polynomial_kwargs())
 
 
+def require_plots() -> None:
+    """A usage error (exit 2) saying how to add matplotlib when it is missing; checked
+    before anything is read or written."""
+    from xlbridge.plots import PlotsUnavailable, figure_class
+
+    try:
+        figure_class()
+    except PlotsUnavailable as exc:
+        raise UsageError() from exc
+
+
 def run_plot(args: argparse.Namespace) -> int:
     from xlbridge.plots import applicable, write_figures
 
+    require_plots()
     f = fit_from_args(args)
     kinds = args.kind
     one = f.result.spec.k == 1
@@ -85,6 +97,7 @@ def run_report(args: argparse.Namespace) -> int:
 
     if args.out.suffix.lower() not in (".html", ".htm"):
         raise UsageError(f"--out {args.out.name}: the report is an .html file")
+    require_plots()
     from xlbridge.engine import CerResult
 
     f = fit_from_args(args, cer=True)
@@ -112,5 +125,6 @@ def configure_demo(p: argparse.ArgumentParser) -> None:
 def run_demo(args: argparse.Namespace) -> int:
     from xlbridge.demo import run_demo as demo
 
+    require_plots()
     print(demo(args.out, force=args.force))
     return EXIT_OK
