@@ -135,3 +135,17 @@ def test_dataframe_text_follows_the_cells_rule() -> None:
     assert "y: 1 number stored as text was read: row 6" in got.notes
     assert "y: row 9 holds text that is not a number and was left out" in got.notes
     assert "1 number stored as text was read: data row 6" in res.notes
+
+
+def test_groups_command_checks_alignment(tmp_path: Path, capsys) -> None:
+    rows = [["site", *r] for r in _rows()]
+    for i, r in enumerate(rows[1:]):
+        r[0] = "north" if i % 2 else "south"
+    book = build_book(tmp_path / "g.xlsx", {"Data": rows})
+    argv = ["groups", book, "--group", "Data!A2:A31", "--y", "Data!C2:C31", "--x",
+            "Data!B1:B30", "--model", "1"]
+    code, _, err = run(argv, capsys)
+    assert ("xlbridge: warning: --y Data!C2:C31 and --x Data!B1:B30 start on different rows "
+            "(2 vs 1)") in err
+    code, _, err = run([*argv, "--strict"], capsys)
+    assert code == 2 and "start on different rows" in err

@@ -44,7 +44,7 @@ def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
                         "height", CellErrorKind.SHAPE)
     cleaned = [group_key(k) for k in keys[:n]]
     usable = np.array([ok for _, ok in cleaned], dtype=bool)
-    notes = []
+    notes = list(inp.notes)  # the guard rails' notes (totals, numbers stored as text, ...)
     if not usable.all():
         notes.append(f"{int((~usable).sum())} rows left out: their group cell holds an error")
     x = inp.x[usable]

@@ -8,7 +8,9 @@ from .common import (
     EXIT_OK,
     UsageError,
     add_output_options,
+    add_reading_options,
     as_usage,
+    check_alignment,
     choice,
     csv_text,
     emit,
@@ -50,6 +52,7 @@ def configure_groups(p: argparse.ArgumentParser) -> None:
     p.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="with --engine dask: address of an existing Dask scheduler, e.g. "
                         "tcp://10.0.0.5:8786 (default: a local Dask)")
+    add_reading_options(p)
     add_output_options(p, ("table", "json", "csv", "xlsx"))
 
 
@@ -81,12 +84,14 @@ def run_groups(args: argparse.Namespace) -> int:
         return _run_dask(args)
     from xlbridge.cells import groups_fit, groups_table
 
-    book = open_book(args.book)
+    book = open_book(args.book, args)
     sheet = book.sheet_name(args.sheet) if args.sheet else None
     refs = [("group", args.group), ("y", args.y), ("x", args.x)]
     if args.weights:
         refs.append(("weights", args.weights))
     areas = resolve(book, refs, sheet)
+    order = [1, 0, *range(2, len(refs))]  # named against y, as in the other commands
+    check_alignment([(*refs[i], areas[i]) for i in order], args.strict)
     values = [read_ref(book, ref, what, a)[1] for (what, ref), a in zip(refs, areas)]
     with as_usage():
         res, opts, notes = groups_fit(values[0], values[1], values[2], args.model,
