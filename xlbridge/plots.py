@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .cells.models import point_words
 from .cells.prepare import sheet_row
 from .engine import FitResult, ModelError, cooks_cutoff, row_diagnostics
 from .engine.scan import DegreeScan
@@ -206,14 +207,19 @@ def degree_scan(scan: DegreeScan):
     return fig
 
 
-def contour(res: FitResult, stationary=None, points: int = 120):
-    """Contours of a fitted surface over the first two predictors (others at their means),
-    the data, and the stationary point when given (an ``Optimum``)."""
+def contour(res: FitResult, stationary=None, points: int = 120, margin: float = 0.05):
+    """Contours of a fitted surface over the first two predictors (others at their means)
+    on axes that cover the data with a ``margin`` (a share of each range), the data, and
+    the stationary point when given (an ``Optimum``): a point beyond the axes is marked at
+    their edge, with its coordinates in the legend."""
     if res.spec.k < 2:
         raise ModelError("the contour plot needs two or more predictors")
     fig, ax = _figure((7.0, 5.4))
-    a = np.linspace(res.x_min[0], res.x_max[0], points)
-    b = np.linspace(res.x_min[1], res.x_max[1], points)
+    lo, hi = np.asarray(res.x_min[:2], float), np.asarray(res.x_max[:2], float)
+    pad = margin * np.where(hi > lo, hi - lo, np.maximum(np.abs(lo), 1.0))
+    lo, hi = lo - pad, hi + pad
+    a = np.linspace(lo[0], hi[0], points)
+    b = np.linspace(lo[1], hi[1], points)
     aa, bb = np.meshgrid(a, b)
     grid = np.tile(res.x.mean(axis=0), (aa.size, 1))
     grid[:, 0], grid[:, 1] = aa.ravel(), bb.ravel()
@@ -225,15 +231,21 @@ def contour(res: FitResult, stationary=None, points: int = 120):
     ax.scatter(res.x[:, 0], res.x[:, 1], s=10, color="k", alpha=0.6, label="data")
     if stationary is not None and stationary.points:
         pt = stationary.points[0]
-        where = "inside" if pt.inside else "outside"
-        ax.scatter([pt.x[0]], [pt.x[1]], marker="*", s=260, color="white", edgecolors="k",
-                   zorder=5, label=f"stationary point: {pt.kind} ({where} the data)")
-        ax.set_xlim(min(a[0], pt.x[0]), max(a[-1], pt.x[0]))
-        ax.set_ylim(min(b[0], pt.x[1]), max(b[-1], pt.x[1]))
+        words = point_words(pt, res.spec.predictors)
+        at = np.clip(np.asarray(pt.x[:2], float), lo, hi)
+        if np.array_equal(at, np.asarray(pt.x[:2], float)):
+            ax.scatter([at[0]], [at[1]], marker="*", s=260, color="white", edgecolors="k",
+                       zorder=5, label=f"stationary point: {words}")
+        else:
+            ax.scatter([at[0]], [at[1]], marker="D", s=70, color="white", edgecolors="k",
+                       zorder=5, clip_on=False,
+                       label=f"stationary point {words}, marked at the edge")
+    ax.set_xlim(lo[0], hi[0])
+    ax.set_ylim(lo[1], hi[1])
     ax.set_xlabel(res.spec.predictors[0])
     ax.set_ylabel(res.spec.predictors[1])
     ax.set_title(f"Fitted {res.response} ({res.model_text})")
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=2, fontsize=8)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.1), ncol=1, fontsize=8)
     return fig
 
 

@@ -35,7 +35,7 @@ __all__ = ["DEGREE_COLUMNS", "DEGREE_CAPTIONS", "CHECK_COLUMNS", "CHECK_CAPTIONS
            "ROW_CAPTIONS", "OPTIMUM_COLUMNS", "optimum_captions", "slope_captions", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
-           "scan_cells", "PlotInput", "plot_input", "plot_figure"]
+           "scan_cells", "PlotInput", "plot_input", "plot_figure", "point_words"]
 
 # Fields behind each column, in table order, and the captions shown (docs/output-style.md):
 # the degree and its choice, then in-sample fit, out-of-sample error, information criteria,
@@ -158,6 +158,16 @@ def optimum_captions(level: float) -> list[str]:
     return ["item", "value", *interval_captions(level), "standard error", "how to read it"]
 
 
+def point_words(pt: Any, predictors: tuple[str, ...]) -> str:
+    """What to call a stationary point: its kind (maximum, minimum, saddle, ...) only when
+    it lies inside the data; otherwise ``outside the data at (x=...)``, because a turning
+    point the data never reach is an extrapolation, not a maximum anyone observed."""
+    if pt.inside:
+        return pt.kind
+    at = ", ".join(f"{n}={v:.4g}" for n, v in zip(predictors, pt.x))
+    return f"outside the data at ({at})"
+
+
 def optimum_table(result: FitResult, options: Options | None = None) -> Table:
     """Stationary point(s) with delta-method intervals; for surfaces the eigenvalues and
     eigenvectors of the quadratic part (canonical analysis)."""
@@ -167,8 +177,11 @@ def optimum_table(result: FitResult, options: Options | None = None) -> Table:
     many = len(opt.points) > 1
     for n, pt in enumerate(opt.points, 1):
         tag = f"point {n} " if many else ""
-        where = "inside the data" if pt.inside else "outside the data: extrapolation"
-        rows.append([f"{tag}kind of point", pt.kind, "", "", "", where])
+        where = "inside the data" if pt.inside else (
+            "extrapolation: the fitted form turns only beyond the data, so within the data "
+            "the highest and lowest fitted values lie on its edge")
+        rows.append([f"{tag}kind of point", point_words(pt, opt.predictors), "", "", "",
+                     where])
         for name, v, se, lo, hi in zip(opt.predictors, pt.x, pt.se, pt.ci_lower, pt.ci_upper):
             rows.append([f"{tag}{name}", v, lo, hi, se, "stationary value (delta method)"])
         rows.append([f"{tag}fitted {result.response}", pt.fitted, pt.fitted_ci_lower,
