@@ -60,7 +60,9 @@ def test_model_tables_json_equal_api(book, capsys, command):
         assert doc["rows"]["leverage"][:3] == rows["leverage"][:3]
         assert doc["rows"]["flag"][3] == "dropped"
     else:
+        notes = doc.pop("notes")  # the table's notes, then the fit's
         assert doc == json.loads(json.dumps(xlbridge.optimum(res).to_dict()))
+        assert notes[0] == xlbridge.optimum(res).note and "1 row dropped (blank 1)" in notes
 
 
 def test_slope_and_weights(book, tmp_path, capsys):

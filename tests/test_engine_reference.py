@@ -188,7 +188,8 @@ def test_equation_reproduces_fitted_values():
 def test_to_dict_keys():
     x, y = _cost_data()
     d = fit(y, x, 2).to_dict()
-    assert set(d) == {"model", "coefficients", "stats", "unit_stats", "relevant_range"}
+    assert set(d) == {"model", "coefficients", "stats", "unit_stats", "relevant_range",
+                      "notes"}
     assert set(d["model"]) == {"spec", "terms", "intercept", "n_used", "n_dropped"}
     assert set(d["coefficients"][0]) == {"term", "estimate", "std_error", "t_ratio", "p_value",
                                          "ci_lower", "ci_upper", "vif", "vif_centered"}

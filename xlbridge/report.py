@@ -159,6 +159,19 @@ def _versions() -> list[list[str]]:
             ["matplotlib", matplotlib.__version__]]
 
 
+def provenance() -> list[list[str]]:
+    """When and with what a report was made (UTC date and time; the versions the numbers
+    depend on), shown beside its fingerprint so a reader can tell two reports apart."""
+    import datetime
+
+    import scipy
+
+    made = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    return [["made on", made],
+            ["made with", f"xlbridge {__version__}, numpy {np.__version__}, "
+                          f"scipy {scipy.__version__}"]]
+
+
 def build_report(res: FitResult, *, scan: DegreeScan | None = None,
                  source: Source | None = None, title: str | None = None,
                  pngs: dict[str, bytes] | None = None) -> str:
@@ -174,7 +187,8 @@ def build_report(res: FitResult, *, scan: DegreeScan | None = None,
     rows = [["file", src.file or "(given directly)"], ["y", src.y_ref or res.response],
             ["x", src.x_ref or ", ".join(res.spec.predictors)],
             ["options", src.options or "(defaults)"], ["rows used", s.n_used],
-            ["rows dropped", res.n_dropped], ["SHA-256 of the rows used", data_hash(res)]]
+            ["rows dropped", res.n_dropped], ["SHA-256 of the rows used", data_hash(res)],
+            *provenance()]
     for nm, lo, hi in zip(res.spec.predictors, res.x_min, res.x_max):
         rows.append([f"range of {nm}", f"{lo:.6g} to {hi:.6g}"])
     parts.append(_table(["item", "value"], rows, text=(0, 1)))
@@ -278,7 +292,7 @@ def build_cer_report(res, facts, *, source: Source | None = None, title: str | N
     parts.append("<h2 id='data'>Data</h2>")
     rows = [["file", src.file or "(given directly)"], ["y", src.y_ref or res.response],
             ["x", src.x_ref or ", ".join(res.drivers)],
-            ["options", src.options or "(defaults)"]]
+            ["options", src.options or "(defaults)"], *provenance()]
     parts.append(_table(["item", "value"], rows, text=(0, 1)))
 
     parts.append("<h2 id='coefficients'>Coefficients</h2>")

@@ -431,6 +431,28 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     return fitted
 
 
+def _with_table_header(book: Any, ref: str, area: Any, options: Any) -> Any:
+    """The area of a table column reference (``Sales[Price]``) with the table's header row
+    on top, so the column's name labels the results as a header row of cells would (the
+    options' names=no keeps the data alone); any other reference's area unchanged."""
+    import dataclasses
+
+    from xlbridge.book.refs import TableRef, parse_ref
+    from xlbridge.book.safety import BookError
+    from xlbridge.cells import OptionsError, parse_options
+
+    try:
+        parsed = parse_ref(ref)
+        if not isinstance(parsed, TableRef) or parsed.parts - {"data"} or \
+                parse_options(options).names == "no":
+            return area
+        with_header = book.resolve(dataclasses.replace(parsed, parts=frozenset(
+            {"headers", "data"})))
+    except (BookError, OptionsError):  # no header row, or options read (and refused) later
+        return area
+    return with_header if with_header.r2 == area.r2 else area
+
+
 def _labels(book: Any, ref: str, area: Any, first_row: int, n: int) -> list[str]:
     """The --label text of each of the ``n`` data rows, matched by sheet row."""
     from xlbridge.book.refs import Area
@@ -543,6 +565,9 @@ def emit_tables(args: argparse.Namespace, f: Fitted, command: str, table: list[l
     shown = table if f.inp.options.header else table[1:]
     src = f"{f.y_area.label()} on {f.x_area.label()}"
     if args.format == "json":
+        if isinstance(doc, dict) and "notes" not in doc:  # the table's notes, then the fit's
+            doc = {**doc, "notes": list(dict.fromkeys(
+                split_notes(table)[1] + [str(n) for n in f.result.notes]))}
         emit(json_text(doc), args.out, args.force, [f.book.path])
     elif args.format == "csv":
         emit(csv_text([shown]), args.out, args.force, [f.book.path])

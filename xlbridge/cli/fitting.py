@@ -94,7 +94,8 @@ def run_predict(args: argparse.Namespace) -> int:
         full = f.result.to_dict()
         model = full.get("model") or {k: full[k] for k in ("form", "method", "equation")}
         doc = {"model": model, "level": f.result.level,
-               "new_x": nx_area.label(), "predictions": rows}
+               "new_x": nx_area.label(), "predictions": rows,
+               "notes": [str(n) for n in f.result.notes]}
         emit(json_text(doc), args.out, args.force, [f.book.path])
     elif args.format == "csv":
         emit(csv_text([shown]), args.out, args.force, [f.book.path])

@@ -101,7 +101,8 @@ def run_groups(args: argparse.Namespace) -> int:
     shown = table if opts.header else table[1:]
     src = f"{areas[1].label()} on {areas[2].label()} by {areas[0].label()}"
     if args.format == "json":
-        emit(json_text(res.to_dict()), args.out, args.force, [book.path])
+        emit(json_text({**res.to_dict(), "notes": [str(n) for n in notes]}), args.out,
+             args.force, [book.path])
     elif args.format == "csv":
         emit(csv_text([shown]), args.out, args.force, [book.path])
     elif args.format == "xlsx":

@@ -50,9 +50,17 @@ def csv_text(tables: Sequence[Sequence[Sequence[Any]]]) -> str:
         if k:
             w.writerow([])
         for row in table:
-            w.writerow([repr(v) if isinstance(v, float) else formula_safe_text(v)
+            w.writerow([_csv_number(v) if isinstance(v, float) else formula_safe_text(v)
                         for v in row])
     return buf.getvalue()
+
+
+def _csv_number(v: float) -> str:
+    """A float for CSV: a whole number (a count, a row, a degree) without ``.0``, any other
+    with every digit (repr)."""
+    if math.isfinite(v) and v.is_integer() and abs(v) < 2**53:
+        return str(int(v))
+    return repr(v)
 
 
 def json_text(doc: Any) -> str:

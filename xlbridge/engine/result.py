@@ -307,7 +307,8 @@ class FitResult:
 
     def to_dict(self) -> dict:
         """JSON-ready dict: ``model``, ``coefficients``, ``stats`` (with the ``fit_space`` it
-        was computed in), ``unit_stats`` (in the data's units) and ``relevant_range``."""
+        was computed in), ``unit_stats`` (in the data's units), ``relevant_range`` and the
+        fit's ``notes``."""
         out = {
             "model": {
                 "spec": self.model_text,
@@ -323,6 +324,7 @@ class FitResult:
         out["unit_stats"] = fit_unit_stats(self).to_dict()
         out["relevant_range"] = relevant_range(np.vstack([self.x_min, self.x_max]),
                                                self.spec.predictors)
+        out["notes"] = [str(n) for n in self.notes]
         return out
 
 
