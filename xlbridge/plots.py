@@ -12,8 +12,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .cells.models import point_words
 from .cells.prepare import sheet_row
+from .cells.tables import point_words
 from .engine import FitResult, ModelError, cooks_cutoff, row_diagnostics
 from .engine.scan import DegreeScan
 

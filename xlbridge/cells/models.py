@@ -28,14 +28,14 @@ from .prepare import FitInput, prepare_fit, sheet_row
 from .prepare import polynomial_cells as fit_cells
 from .prepare import polynomial_prepared as fit_prepared
 from .statrows import interval_captions
-from .tables import aligned_rows, finish_table, new_points, note_rows
+from .tables import aligned_rows, finish_table, new_points, note_rows, point_words
 from .values import drop_reason, single_value
 
 __all__ = ["DEGREE_COLUMNS", "DEGREE_CAPTIONS", "CHECK_COLUMNS", "CHECK_CAPTIONS", "ROW_COLUMNS",
            "ROW_CAPTIONS", "OPTIMUM_COLUMNS", "optimum_captions", "slope_captions", "FitFigure",
            "degrees_table", "degrees_cells", "checks_table", "checks_cells", "rows_table",
            "rows_cells", "optimum_table", "optimum_cells", "slope_table", "slope_cells",
-           "scan_cells", "PlotInput", "plot_input", "plot_figure", "point_words"]
+           "scan_cells", "PlotInput", "plot_input", "plot_figure"]
 
 # Fields behind each column, in table order, and the captions shown (docs/output-style.md):
 # the degree and its choice, then in-sample fit, out-of-sample error, information criteria,
@@ -156,16 +156,6 @@ def rows_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 def optimum_captions(level: float) -> list[str]:
     """Header of the optimum table: value, interval, standard error (as the coefficients)."""
     return ["item", "value", *interval_captions(level), "standard error", "how to read it"]
-
-
-def point_words(pt: Any, predictors: tuple[str, ...]) -> str:
-    """What to call a stationary point: its kind (maximum, minimum, saddle, ...) only when
-    it lies inside the data; otherwise ``outside the data at (x=...)``, because a turning
-    point the data never reach is an extrapolation, not a maximum anyone observed."""
-    if pt.inside:
-        return pt.kind
-    at = ", ".join(f"{n}={v:.4g}" for n, v in zip(predictors, pt.x))
-    return f"outside the data at ({at})"
 
 
 def optimum_table(result: FitResult, options: Options | None = None) -> Table:

@@ -33,7 +33,7 @@ from .values import OK, CleanCells, clean_cells, drop_reason, from_array, grid_o
 __all__ = ["COEF_COLUMNS", "PREDICT_COLUMNS", "MAX_TEXT", "MAX_CELL_TEXT", "NOTE_MARK",
            "STATS_NOTE", "aligned_rows", "coef_captions", "coef_table", "coefs_cells",
            "equation_cells", "equation_text", "finish_table", "info_cells", "info_table",
-           "interval_captions", "new_points", "note_rows", "predict_captions",
+           "interval_captions", "new_points", "note_rows", "point_words", "predict_captions",
            "predict_cells", "predict_table", "split_notes", "stats_cells", "stats_table",
            "wrap_text"]
 
@@ -376,3 +376,13 @@ def equation_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
 
 def info_cells() -> Table:
     return info_table()
+
+
+def point_words(pt: Any, predictors: tuple[str, ...]) -> str:
+    """What to call a stationary point: its kind (maximum, minimum, saddle, ...) only when
+    it lies inside the data; otherwise ``outside the data at (x=...)``, because a turning
+    point the data never reach is an extrapolation, not a maximum anyone observed."""
+    if pt.inside:
+        return pt.kind
+    at = ", ".join(f"{n}={v:.4g}" for n, v in zip(predictors, pt.x))
+    return f"outside the data at ({at})"
