@@ -383,6 +383,9 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     check_alignment([(w, r, a) for (w, r), a in zip(refs, resolved)],
                     getattr(args, "strict", False))
     areas = dict(zip((what for what, _ in refs), resolved))
+    for what, ref in refs[:3]:  # y, x, weights: a table column's name is its header
+        if what != "label":
+            areas[what] = _with_table_header(book, ref, areas[what], args.options)
     y_area, y = read_ref(book, args.y, "y", areas["y"])
     x_area, x = read_ref(book, args.x, "x", areas["x"])
     w = read_ref(book, args.weights, "weights", areas["weights"])[1] \
