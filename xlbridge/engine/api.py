@@ -11,7 +11,7 @@ from .cerresult import CerResult
 from .errors import ModelError, ModelErrorKind, check_level, distinct_shortage
 from .numtext import number_of_text, rows_text, text_numbers_note
 from .result import FitResult, Remedy
-from .solve import check_terms, solve, too_large
+from .solve import ACCEPT_ERROR, check_terms, solve, too_large
 from .terms import parse_model
 
 #: Where the statistical conventions are written down (named in notes that rely on one).
@@ -134,6 +134,7 @@ def fit(
     error: str = "additive",
     method: str | None = None,
     correction: str = "smearing",
+    certify: bool = True,
 ) -> FitResult | CerResult:
     """Least-squares fit of ``y`` on a polynomial or second-order model in ``x``.
 
@@ -172,6 +173,10 @@ def fit(
         ``error='percent'``.
     correction : {'smearing', 'normal', 'none'}, default 'smearing'
         The back-transform correction a CER fitted by 'log' applies in units.
+    certify : bool, default True
+        False keeps the double-precision answer without the refined or exact refit that
+        certifies badly conditioned fits (an accuracy note gives its digits): for inner
+        loops such as cross-validation folds, whose coefficients are not shown.
 
     Returns
     -------
@@ -266,11 +271,11 @@ def fit(
     # overflow in extreme data is detected and reported as a message, not a warning
     with np.errstate(over="ignore", invalid="ignore"):
         return _fit_clean(spec, xu, yu, wu, float(level), used, n_dropped, response, se,
-                          bool(log), error, yv, text_notes)
+                          bool(log), error, yv, text_notes, bool(certify))
 
 
 def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, error, yv,
-               text_notes=()):
+               text_notes=(), certify=True):
     notes: list[str] = list(text_notes)
     if wu is not None:
         notes.append("weighted fit: rmse is the error SD of an observation of weight 1, and "
@@ -287,11 +292,11 @@ def _fit_clean(spec, xu, yu, wu, level, used, n_dropped, response, se, log, erro
     sy, cw = inference.response_scale(yu), inference.weight_scale(wu)
     ys = yu / sy
     ws = None if wu is None else wu / cw
-    core = solve(xu, ys, ws, spec)
+    core = solve(xu, ys, ws, spec, certify and error != "percent")
     iterations = 0
     w_true, w_ratio = wu, cw
     if error == "percent":
-        core, ws, iterations = _percent_error_fit(xu, ys, ws, spec, core)
+        core, ws, iterations = _percent_error_fit(xu, ys, ws, spec, core, certify)
         w_ratio = cw / sy / sy  # weights 1 / fitted^2 on the scaled response
         w_true = ws * w_ratio
         if not (np.isfinite(w_ratio) and w_ratio > 0 and np.all(np.isfinite(w_true))
@@ -329,19 +334,27 @@ PERCENT_TOL = 1e-12
 PERCENT_MAX_STEPS = 100
 
 
-def _percent_error_fit(x, y, w, spec, core):
-    """Minimum-unbiased-percentage-error fit: reweight by 1/fitted^2 until converged."""
+def _percent_error_fit(x, y, w, spec, core, certify=True):
+    """Minimum-unbiased-percentage-error fit: reweight by 1/fitted^2 until converged. The
+    steps solve in double precision until they settle to within that solve's own error
+    estimate; then one certified (refined or exact) solve at those weights gives the answer,
+    so a badly conditioned model costs one certified solve, not one per step."""
     base = np.ones(len(y)) if w is None else w
+    sure = False
     for step in range(1, PERCENT_MAX_STEPS + 1):
         fitted = y - core.residuals
         if np.any(fitted <= 0):
             raise ModelError("error=percent needs fitted values above 0 in every row; this "
                              "model predicts 0 or less for some rows", ModelErrorKind.DATA)
         wn = base / fitted**2
-        new = solve(x, y, wn, spec)
+        new = solve(x, y, wn, spec, certify and sure)
         change = np.max(np.abs(new.beta - core.beta) / np.maximum(np.abs(new.beta), 1e-300))
         core = new
-        if change <= PERCENT_TOL:
-            return core, wn, step
+        # settled as far as this solve can tell: the weights are the fixed point to within
+        # double precision; one certified solve at them then gives the answer
+        if sure or change <= max(PERCENT_TOL, 1e3 * new.error_bound):
+            if sure or not certify or new.error_bound <= ACCEPT_ERROR:
+                return core, wn, step
+            sure = True
     raise ModelError(f"error=percent did not converge in {PERCENT_MAX_STEPS} reweighting steps; "
                      "try a simpler model", ModelErrorKind.DATA)

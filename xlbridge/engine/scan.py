@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .api import fit
+from .api import PERCENT_MAX_STEPS, fit
 from .inference import f_pvalue
 from .solve import ALIAS_TOL, choose_basis
 from .terms import MAX_DEGREE, ModelError, ModelErrorKind, parse_model
@@ -61,13 +61,15 @@ class DegreeScan:
                 "folds": self.folds, "rule": self.rule, "notes": list(self.notes)}
 
 
-def _fold_predict(y, x, w, degree, intercept, log, x_test) -> np.ndarray | None:
+def _fold_predict(y, x, w, degree, intercept, log, x_test,
+                  percent: bool = False) -> np.ndarray | None:
     """Predictions at ``x_test`` of a degree-``degree`` least-squares fit to one training
     fold, by a plain QR solve on the fit's own centered, scaled basis: no inference, no
     refinement (fold predictions need nowhere near the digits reported for the fit itself;
     the QR answer on this well-conditioned basis agrees with the full fit to about 1e-13).
-    None when the fold is short of rows or distinct x values, or a column is aliased: the
-    full fit then runs, to raise its own message."""
+    ``percent``: reweighted by 1 / fitted^2 until the coefficients settle, as fit does.
+    None when the fold is short of rows or distinct x values, a column is aliased or the
+    reweighting fails: the full fit then runs, to raise its own message."""
     spec = parse_model(degree, 1, None, intercept=intercept)
     p = spec.n_params
     if len(y) <= p or len(np.unique(x)) < degree + 1:
@@ -76,17 +78,24 @@ def _fold_predict(y, x, w, degree, intercept, log, x_test) -> np.ndarray | None:
     xt = x.reshape(-1, 1)
     basis = choose_basis(xt, w, spec)
     design = basis.design(xt)
-    a, z = design, yy
-    if w is not None:
-        sw = np.sqrt(w)
-        a, z = design * sw[:, None], yy * sw
-    norms = np.sqrt(np.einsum("ij,ij->j", a, a))
-    if not np.all(norms > 0):
+    b = _qr_coef(design, yy, w)
+    if percent and b is not None:
+        base = np.ones(len(yy)) if w is None else w
+        for _ in range(PERCENT_MAX_STEPS):
+            fitted = design @ b
+            if not np.all(fitted > 0):
+                return None
+            new = _qr_coef(design, yy, base / fitted**2)
+            if new is None:
+                return None
+            settled = np.max(np.abs(new - b)) <= FOLD_PERCENT_TOL * np.max(np.abs(new))
+            b = new
+            if settled:
+                break
+        else:
+            return None
+    if b is None:
         return None
-    q, r = np.linalg.qr(a / norms)
-    if not np.all(np.abs(np.diag(r)) > ALIAS_TOL):
-        return None
-    b = np.linalg.solve(r, q.T @ z) / norms
     eta = basis.design(x_test.reshape(-1, 1)) @ b
     if not np.all(np.isfinite(eta)):
         return None
@@ -95,21 +104,41 @@ def _fold_predict(y, x, w, degree, intercept, log, x_test) -> np.ndarray | None:
     return eta
 
 
+#: Fold fits by percent error stop reweighting when no scaled-basis coefficient moves by
+#: more than this, relative to the largest (predictions, not reported coefficients).
+FOLD_PERCENT_TOL = 1e-10
+
+
+def _qr_coef(design, z, w) -> np.ndarray | None:
+    """Weighted least-squares coefficients on the scaled basis by QR; None when aliased."""
+    a = design
+    if w is not None:
+        sw = np.sqrt(w)
+        a, z = design * sw[:, None], z * sw
+    norms = np.sqrt(np.einsum("ij,ij->j", a, a))
+    if not np.all(norms > 0) or not np.all(np.isfinite(norms)):
+        return None
+    q, r = np.linalg.qr(a / norms)
+    if not np.all(np.abs(np.diag(r)) > ALIAS_TOL):
+        return None
+    return np.linalg.solve(r, q.T @ z) / norms
+
+
 def _cv(y, x, w, degree, folds, opts) -> tuple[float, float]:
     """Pooled k-fold RMSE on the original y scale and its standard error (one-SE rule)."""
     n = len(y)
     fold_of = np.arange(n) % folds
     mse, sizes = [], []
-    cheap = opts["error"] == "additive"
+    percent = opts["error"] == "percent"
     with blas_threads(0):  # many small products
         for k in range(folds):
             test = fold_of == k
             train = ~test
             wk = None if w is None else w[train]
-            pred = (_fold_predict(y[train], x[train], wk, degree, opts["intercept"],
-                                  opts["log"], x[test]) if cheap else None)
-            if pred is None:  # percent error (reweighting), or a fold fit must explain why
-                res = fit(y[train], x[train], degree, weights=wk, **opts)
+            pred = _fold_predict(y[train], x[train], wk, degree, opts["intercept"],
+                                 opts["log"], x[test], percent)
+            if pred is None:  # a fold fit must explain why
+                res = fit(y[train], x[train], degree, weights=wk, certify=False, **opts)
                 pred = res.predict(x[test]).fitted
             err = y[test] - pred
             wt = np.ones(err.size) if w is None else w[test]

@@ -223,18 +223,22 @@ def _leverage(q_source: np.ndarray, rinv: np.ndarray) -> np.ndarray:
     return h
 
 
-def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Core:
+def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
+          certify: bool = True) -> Core:
     """Weighted least squares of y on the model's columns; raises ModelError if singular.
 
     ``Core.method`` names the path that produced the answer: "qr" or "cholesky" (double
     precision, accepted by its error estimate), "refined" (iterative refinement in
     double-double arithmetic, accepted by its own estimate) or "exact" (the integer refit,
-    the last resort when neither estimate is below ACCEPT_ERROR)."""
+    the last resort when neither estimate is below ACCEPT_ERROR). ``certify=False`` stops
+    after the double-precision solve (its ``error_bound`` says how good it is): for inner
+    loops whose answers are not shown, such as reweighting steps and cross-validation."""
     with blas_threads(0):  # one thread, except around the factorisation below
-        return _solve(x, y, w, spec)
+        return _solve(x, y, w, spec, certify)
 
 
-def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Core:
+def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
+           certify: bool) -> Core:
     n = len(y)
     basis = choose_basis(x, w, spec)
     an = basis.design(x)  # becomes the weighted, unit-column design in place
@@ -304,7 +308,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec) 
                          sst)
     core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
                 gram)
-    if bound <= ACCEPT_ERROR:
+    if bound <= ACCEPT_ERROR or not certify:
         return core
     refined = _refined(x, y, w, spec, core, m_hi, m_lo) if n * p <= REFINE_BUDGET else None
     if refined is not None and refined.error_bound <= ACCEPT_ERROR:
