@@ -28,7 +28,7 @@ import numpy as np
 
 from .cerresult import CerCoefficient, CerResult, design
 from .dist import t_pvalue, t_quantile
-from .errors import ModelError, ModelErrorKind, check_level
+from .errors import ModelError, ModelErrorKind, check_level, overflow_is_scale
 from .unitstats import unit_stats
 
 FORMS = ("power", "factor", "exponential")
@@ -244,6 +244,7 @@ def _coefficients(form, method, drivers, theta, cov, df, level):
     return tuple(out)
 
 
+@overflow_is_scale
 def fit_cer(y, x, form: str = "power", method: str = "log", *, names=None,
             level: float = 0.95, correction: str = "smearing", response: str | None = None,
             ) -> CerResult:

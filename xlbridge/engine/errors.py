@@ -7,8 +7,10 @@ the message (which say what to fix and may change).
 from __future__ import annotations
 
 import difflib
-from collections.abc import Iterable
+import functools
+from collections.abc import Callable, Iterable
 from enum import Enum
+from typing import Any, TypeVar
 
 
 class ModelErrorKind(str, Enum):
@@ -79,3 +81,22 @@ def did_you_mean(word: str, valid: Iterable[str]) -> str:
     """``"; did you mean 'x'?"`` for the nearest valid word, or ``""`` when none is near."""
     near = nearest(word, valid)
     return f"; did you mean {near!r}?" if near else ""
+
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def overflow_is_scale(fn: F) -> F:
+    """Decorate an engine function so an OverflowError from float arithmetic (math.exp,
+    ** on floats) becomes ModelError(SCALE) saying to rescale, never an internal error."""
+
+    @functools.wraps(fn)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        try:
+            return fn(*args, **kwargs)
+        except OverflowError:
+            raise ModelError("the numbers overflow double precision in this calculation; "
+                             "rescale the data, e.g. work in thousands, millions or other "
+                             "units", ModelErrorKind.SCALE) from None
+
+    return wrapper  # type: ignore[return-value]

@@ -166,7 +166,9 @@ def rmse_percent(rmse: float, ybar: float, remedy: Remedy) -> float:
     if remedy.log and remedy.error == "percent":
         return math.nan
     if remedy.log:
-        return 100.0 * math.sqrt(math.expm1(rmse * rmse)) if math.isfinite(rmse) else math.nan
+        if not math.isfinite(rmse) or rmse * rmse > 700:  # the spread overflows: no figure
+            return math.nan
+        return 100.0 * math.sqrt(math.expm1(rmse * rmse))
     if remedy.error == "percent":
         return 100.0 * rmse
     return 100.0 * rmse / ybar if ybar != 0 else math.nan

@@ -29,7 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .dist import t_quantile
-from .errors import ModelError, ModelErrorKind, check_level
+from .errors import ModelError, ModelErrorKind, check_level, overflow_is_scale
 from .result import plain
 
 THEORIES = ("unit", "cumulative")
@@ -39,6 +39,7 @@ MIDPOINT_TOL, MIDPOINT_MAX_STEPS = 1e-12, 200
 DATA = ModelErrorKind.DATA
 
 
+@overflow_is_scale
 def power_sum(m: int, n: int, b: float) -> float:
     """sum_{i=m..n} i^b for whole numbers 1 <= m <= n: directly (math.fsum) up to
     DIRECT_SUM_MAX terms; beyond, the first terms directly and the tail by Euler-Maclaurin
@@ -178,6 +179,7 @@ def _lot_midpoints(first, last, b: float) -> np.ndarray:
                      for f, g in zip(first, last)])
 
 
+@overflow_is_scale
 def learning_curve(units, costs, theory: str = "unit", first=None, last=None,
                    level: float = 0.95) -> LearningCurve:
     """Fit a learning curve from unit data (``units``, ``costs``) or from lots (``first``,
