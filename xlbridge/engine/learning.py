@@ -113,6 +113,7 @@ class LearningCurve:
             return self.t1 * n ** (self.b + 1)
         return self.t1 * power_sum(1, n, self.b)
 
+    @overflow_is_scale
     def unit_cost(self, n: float) -> float:
         """Cost of unit ``n`` (any number >= 1 under unit theory; whole under cumulative)."""
         if self.theory == "unit":
@@ -122,6 +123,7 @@ class LearningCurve:
         k = _whole(n, "unit number")
         return self._total(k) - self._total(k - 1)
 
+    @overflow_is_scale
     def lot_cost(self, m: int, n: int) -> float:
         """Cost of units ``m``..``n`` together (whole numbers, 1 <= m <= n)."""
         m, n = _whole(m, "first unit"), _whole(n, "last unit")

@@ -27,7 +27,13 @@ import numpy as np
 def _sum(a) -> float:
     """Exact sum (math.fsum) of finite terms; inf or nan, never an exception, otherwise."""
     a = np.asarray(a, dtype=float)
-    return math.fsum(a) if np.all(np.isfinite(a)) else float(np.sum(a))
+    if np.all(np.isfinite(a)):
+        try:
+            return math.fsum(a)
+        except OverflowError:  # a partial sum beyond the double range: inf, as np.sum gives
+            pass
+    with np.errstate(over="ignore", invalid="ignore"):
+        return float(np.sum(a))
 
 
 def _plain(v: float) -> float | None:
