@@ -112,3 +112,20 @@ def test_command_line_and_cell_show_the_hints(tmp_path: Path, capsys):
     assert code == 0
     cell = XB_COEFS(y.reshape(-1, 1).tolist(), np.column_stack([a, b]).tolist(), "surfce")
     assert cell[0][0].startswith("xlbridge: unknown model 'surfce'; did you mean 'surface'?")
+
+
+def test_log_fit_with_a_huge_log_spread_is_no_internal_error():
+    """Found by fuzzing the cells: y spanning 300 decades fitted with log=yes overflowed
+    exp(rmse²) in the percent spread (100·sqrt(e^(s²) − 1) of the lognormal); the
+    spread beyond the double range is shown as no figure, the fit's numbers still are."""
+    from xlbridge.worksheet import XB_STATS
+
+    y = [[1e-300], [5.0], [7.0], [1e-290], [9.0], [11.0], [2.0]]
+    x = [[1.0], [2.0], [3.0], [4.0], [5.0], [6.0], [7.0]]
+    table = XB_STATS(y, x, 1, "log=yes")
+    text = " ".join(str(c) for r in table for c in r)
+    assert "internal error" not in text and not str(table[0][0]).startswith("xlbridge:")
+    lny = np.log([r[0] for r in y])
+    slope = np.polyfit(np.arange(1, 8), lny, 1)[0]  # numpy's least squares on ln y
+    res = __import__("xlbridge").fit([r[0] for r in y], [r[0] for r in x], 1, log=True)
+    assert res.coefficients[1].estimate == pytest.approx(slope, rel=1e-9)
