@@ -111,3 +111,13 @@ def test_unused_columns_never_matter():
         res = fit(y, np.column_stack([x, other]), "x1, x1^2")
         np.testing.assert_array_equal(res.estimates, base.estimates)
         np.testing.assert_array_equal(res.std_errors, base.std_errors)
+
+
+def test_wald_f_with_a_singular_covariance():
+    """A covariance with a zero-variance direction (found by the fuzz): the Wald F is
+    b' C^+ b / q (pseudo-inverse, hand computed) when b lies in C's range, else infinite."""
+    from xlbridge.engine.inference import wald_f
+
+    c = np.array([[2.0, 0.0], [0.0, 0.0]])
+    assert wald_f(np.array([1.0, 0.0]), c, [0, 1]) == pytest.approx(0.25)
+    assert wald_f(np.array([1.0, 2.0]), c, [0, 1]) == np.inf

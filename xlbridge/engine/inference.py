@@ -217,7 +217,15 @@ def wald_f(b: np.ndarray, cov: np.ndarray, idx: list[int]) -> float:
     c = cov[np.ix_(idx, idx)]
     if not np.any(c):
         return math.inf if np.any(bb != 0) else math.nan
-    return float(bb @ np.linalg.solve(c, bb)) / len(idx)
+    try:
+        return float(bb @ np.linalg.solve(c, bb)) / len(idx)
+    except np.linalg.LinAlgError:  # a combination with zero variance (e.g. an exact fit)
+        if not (np.all(np.isfinite(c)) and np.all(np.isfinite(bb))):
+            return math.nan
+        sol = np.linalg.lstsq(c, bb, rcond=None)[0]
+        if not np.allclose(c @ sol, bb, rtol=1e-10, atol=0):
+            return math.inf  # part of b lies where its variance is zero
+        return float(bb @ sol) / len(idx)
 
 
 def _centered_label(q, names, centers) -> str:
