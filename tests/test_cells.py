@@ -30,7 +30,7 @@ from xlbridge.cells import (
 from xlbridge.cells.cache import FIT_CACHE
 from xlbridge.cells.options import Options, OptionsError
 from xlbridge.cells.statrows import QUESTIONS
-from xlbridge.engine import FitStats, ModelError
+from xlbridge.engine import FitStats
 from xlbridge.engine.errors import ModelError as EngineModelError
 from xlbridge.engine.errors import ModelErrorKind
 
@@ -201,9 +201,6 @@ def test_mismatched_lengths_message_names_both_sizes():
         prepare_fit(["cost"] + y[:9], x, 1.0)
 
 
-@pytest.mark.xfail(not hasattr(ModelError("probe"), "kind"), strict=True,
-                   reason="needs the engine's ModelError.kind (SHORTAGE), which the engine "
-                          "refactor adds; passes once both are merged")
 def test_too_few_rows_says_how_many_were_dropped():
     with pytest.raises(CellError) as info:
         fit_cells([1.0, 2.0, None, "a", 5.0], [1.0, 2.0, 3.0, 4.0, None], 2.0)
