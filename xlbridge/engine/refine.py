@@ -28,47 +28,21 @@ from math import comb
 
 import numpy as np
 
+from .ddarith import dd_add, split, two_prod, two_sum
+
 EPS = 2.0**-53
-_SPLITTER = 134217729.0  # 2**27 + 1: Dekker's split of a double into two 26-bit halves
 #: Refinement steps at most; each normally gains about 14 digits on the scaled basis.
 MAX_STEPS = 4
 
 
-def two_sum(a, b):
-    """s + e == a + b exactly, s = fl(a + b) (Knuth)."""
-    s = a + b
-    bb = s - a
-    return s, (a - (s - bb)) + (b - bb)
-
-
-def _split(a):
-    c = _SPLITTER * a
-    hi = c - (c - a)
-    return hi, a - hi
-
-
-def two_prod(a, b):
-    """p + e == a * b exactly, p = fl(a * b) (Dekker; no overflow in the split assumed)."""
-    p = a * b
-    ah, al = _split(a)
-    bh, bl = _split(b)
-    return p, ((ah * bh - p) + ah * bl + al * bh) + al * bl
-
-
 def dd_mul(ah, al, bh, bl):
-    """(ah + al) * (bh + bl) as a normalised pair, relative error about 2^-104."""
+    """(ah + al) * (bh + bl) as a normalised pair, relative error about 2^-104 (the cross
+    terms summed before they meet the product's error, as the refinement's bound assumes;
+    ddarith.dd_mul adds them one at a time)."""
     p, e = two_prod(ah, bh)
     e = e + (ah * bl + al * bh)
     s = p + e
     return s, e - (s - p)
-
-
-def dd_add(ah, al, bh, bl):
-    """(ah + al) + (bh + bl) as a normalised pair."""
-    s, e = two_sum(ah, bh)
-    e = e + (al + bl)
-    h = s + e
-    return h, e - (h - s)
 
 
 def slice_bits(m: int) -> int:
@@ -360,7 +334,7 @@ def accurate_sum(hi: np.ndarray, lo: np.ndarray | float = 0.0) -> float:
 def weighted_sum_squares(h: np.ndarray, lo: np.ndarray, w: np.ndarray | None) -> float:
     """sum(w (h + lo)^2) to a few units in the last place (squares as exact products)."""
     if w is None:
-        hh, hl = _split(h)
+        hh, hl = split(h)
         sq = h * h
         err = ((hh * hh - sq) + 2 * hh * hl) + hl * hl  # two_prod(h, h), one split
         err = err + 2 * h * lo

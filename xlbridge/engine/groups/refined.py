@@ -9,8 +9,8 @@ import math
 
 import numpy as np
 
+from ..ddarith import dd_add, dd_div, dd_mul, dd_mv, dd_prod, dd_sum_products, split, two_sum
 from ..solve import ACCEPT_ERROR, CHOLESKY_MIN_DIAG, EPS, power_of_two_scale
-from .ddarith import dd_add, dd_div, dd_mul, dd_mv, dd_prod, dd_sum_products, split, two_sum
 from .stacks import (
     Plan,
     block_arrays,

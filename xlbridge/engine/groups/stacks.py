@@ -9,9 +9,9 @@ from math import comb
 
 import numpy as np
 
+from ..ddarith import dd_mul, dd_sum_products
 from ..solve import EPS
 from ..terms import ModelSpec
-from .ddarith import dd_mul, dd_sum_products
 
 
 @dataclass(frozen=True)

@@ -29,6 +29,11 @@ def _prod_err(a, b, asp, bsp):
     return ((asp[0] * bsp[0] - a * b) + asp[0] * bsp[1] + asp[1] * bsp[0]) + asp[1] * bsp[1]
 
 
+def two_prod(a, b):
+    """(p, e) with p = fl(a * b) and a * b = p + e exactly (Dekker; no overflow in the split)."""
+    return a * b, _prod_err(a, b, split(a), split(b))
+
+
 def renorm(s, e):
     """s + e as a normalised pair (fl(s + e), the rest), for |e| no larger than |s|."""
     t = s + e
