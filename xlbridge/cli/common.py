@@ -8,7 +8,6 @@ it needs when called, because every command is a new process and start-up time c
 from __future__ import annotations
 
 import argparse
-import difflib
 import sys
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -134,9 +133,11 @@ def as_failure() -> Iterator[None]:
 
 
 def closest(word: str, valid: Sequence[str]) -> str | None:
-    """The valid word nearest to ``word`` (difflib's similarity), if any is near."""
-    found = difflib.get_close_matches(word, list(valid), n=1, cutoff=0.6)
-    return found[0] if found else None
+    """The valid word nearest to ``word``, by the engine's one rule (imported here, on the
+    error path only, so that a command's start does not load the engine)."""
+    from xlbridge.engine.errors import nearest
+
+    return nearest(word, valid)
 
 
 def unknown_text(what: str, word: str, valid: Sequence[str]) -> str:
