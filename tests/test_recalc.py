@@ -297,14 +297,14 @@ def test_saved_values_of_ordinary_formulas(tmp_path: Path) -> None:
 
 
 def test_text_that_looks_like_a_formula_stays_text(tmp_path: Path, capsys) -> None:
-    src = cost_book(tmp_path / "t.xlsx", extra_sheets={"Notes": [["=2+3"], ["@risk"]]},
+    src = cost_book(tmp_path / "t.xlsx", extra_sheets={"Notes": [["=2+3"], ["@margin"]]},
                     formulas={"Model": {"A1": f"=XB_EQUATION({D}!B:B,{D}!A:A,1)"}})
     out = tmp_path / "t-copy.xlsx"
     code, _, err = run(["recalc", src, "--out", out], capsys)
     assert code == 0, err
     ws = openpyxl.load_workbook(out)["Notes"]
     assert (ws["A1"].value, ws["A1"].data_type) == ("=2+3", "s")
-    assert _region(out, "Notes", "A1:A2") == [["=2+3"], ["@risk"]]
+    assert _region(out, "Notes", "A1:A2") == [["=2+3"], ["@margin"]]
 
 
 def test_recalc_output_rules(tmp_path: Path, capsys) -> None:
