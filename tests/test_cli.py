@@ -64,7 +64,7 @@ def test_fit_json_equals_python_api(book: Path, capsys) -> None:
     assert doc == _no_notes(_api_fit(blanks=(3, 17)).to_dict())
     assert doc["model"]["n_dropped"] == 2
     # the notes say which rows were left out, by sheet row (header in sheet row 1)
-    assert notes == ["2 rows dropped (blank 2)", "rows left out: sheet rows 5 and 19"]
+    assert notes == ["2 rows dropped (blank 2): sheet rows 5 and 19"]
     assert sha256(book) == before
 
 

@@ -149,11 +149,11 @@ def test_bad_input_gives_a_message_naming_the_row_never_a_number(book, tmp_path,
     code, out, err = run(["fit", bad, "--y", "Data!B:B", "--x", "Data!A:A", "--model",
                           "power", "--options", "method=log"], capsys)
     assert code == 1 and out == ""  # readable data the power model cannot take: a failed fit
-    assert err.startswith("xlbridge:") and "row 3 of the selected range" in err
+    assert err.startswith("xlbridge:") and "data row 2 is sheet row 3" in err
     code, out, err = run(["learning", bad, "--units", "Lots!A:B", "--costs", "Lots!C:C"],
                          capsys)
     assert code == 2 and out == "" and "last unit 6 is before first unit 9" in err
-    assert "row 3 of the selected range" in err
+    assert "data row 2 is sheet row 3" in err
     code, out, err = run(["fit", bad, "--y", "Data!B:B", "--x", "Data!A:A", "--model",
                           "power"], capsys)
     assert code == 2 and "method=mupe" in err

@@ -50,7 +50,8 @@ def test_model_tables_json_equal_api(book, capsys, command):
     doc = json.loads(out)
     _, _, res = _api()
     if command == "checks":
-        own = [{k: v for k, v in c.items() if k != "sheet_row"} for c in doc["checks"]]
+        own = [{k: v for k, v in c.items() if k not in ("sheet_row", "sheet_span")}
+               for c in doc["checks"]]
         assert own == json.loads(json.dumps([c.to_dict() for c in xlbridge.checks(res)]))
         # the command line adds where the named row sits (header in sheet row 1)
         assert all(c["sheet_row"] == (None if c["row"] is None else c["row"] + 1)
@@ -62,7 +63,8 @@ def test_model_tables_json_equal_api(book, capsys, command):
     else:
         notes = doc.pop("notes")  # the table's notes, then the fit's
         assert doc == json.loads(json.dumps(xlbridge.optimum(res).to_dict()))
-        assert notes[0] == xlbridge.optimum(res).note and "1 row dropped (blank 1)" in notes
+        assert notes[0] == xlbridge.optimum(res).note
+        assert "1 row dropped (blank 1): sheet row 5" in notes
 
 
 def test_slope_and_weights(book, tmp_path, capsys):

@@ -11,6 +11,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import xlbridge
 from xlbridge import cells
@@ -42,7 +44,7 @@ def test_misaligned_ranges_warn_and_strict_refuses(tmp_path: Path, capsys) -> No
     code, _, err = run(argv, capsys)
     assert code == 0
     assert ("xlbridge: warning: --y Data!B3:B31 and --x Data!A2:A30 start on different "
-            "rows (3 vs 2); rows are paired by position") in err
+            "sheet rows (3 vs 2); rows are paired by position") in err
     code, _, err = run([*argv, "--strict"], capsys)
     assert code == 2 and err.startswith("xlbridge: --y Data!B3:B31 and --x Data!A2:A30")
     # aligned ranges: no warning
@@ -153,7 +155,99 @@ def test_groups_command_checks_alignment(tmp_path: Path, capsys) -> None:
     argv = ["groups", book, "--group", "Data!A2:A31", "--y", "Data!C2:C31", "--x",
             "Data!B1:B30", "--model", "1"]
     code, _, err = run(argv, capsys)
-    assert ("xlbridge: warning: --y Data!C2:C31 and --x Data!B1:B30 start on different rows "
-            "(2 vs 1)") in err
+    assert ("xlbridge: warning: --y Data!C2:C31 and --x Data!B1:B30 start on different sheet "
+            "rows (2 vs 1)") in err
     code, _, err = run([*argv, "--strict"], capsys)
-    assert code == 2 and "start on different rows" in err
+    assert code == 2 and "start on different sheet rows" in err
+
+
+def test_recalc_pin_verify_warn_on_misaligned_xb_calls(tmp_path: Path, capsys) -> None:
+    """The runner knows each XB_ argument's range: y and x one row apart are named on
+    stderr (one `xlbridge: warning:` line per call); with --strict the cell fails."""
+    book = build_book(tmp_path / "b.xlsx", {"Data": _rows()}, formulas={"Model": {
+        "A1": "=XB_EQUATION(Data!B3:B31,Data!A2:A30,1)",
+        "A3": "=XB_EQUATION(Data!B2:B31,Data!A2:A31,1)"}})
+    copy = tmp_path / "c.xlsx"
+    code, out, err = run(["recalc", book, "--out", str(copy)], capsys)
+    warnings = [ln for ln in err.splitlines() if ln.startswith("xlbridge: warning:")]
+    assert code == 0 and warnings == [
+        "xlbridge: warning: Model!A1 XB_EQUATION: y Data!B3:B31 and x Data!A2:A30 start "
+        "on different sheet rows (3 vs 2); rows are paired by position"]
+    pins = tmp_path / "p.json"
+    code, _, err = run(["pin", book, "--out", str(pins)], capsys)
+    assert code == 0 and err.count("xlbridge: warning:") == 1
+    code, _, err = run(["verify", book, "--pins", str(pins)], capsys)
+    assert code == 0 and err.count("xlbridge: warning:") == 1
+    code, out, _ = run(["recalc", book, "--out", str(copy), "--force", "--strict"], capsys)
+    assert code == 1 and "Model!A1 XB_EQUATION: xlbridge: y Data!B3:B31" in out
+    assert "(--strict)" in out and "Model!A3" not in out
+
+
+def test_top_row_names_sheet_rows_in_cells() -> None:
+    """With top_row (the sheet row of the selection's first row) the worksheet functions
+    name sheet rows, as the command line does: a text cell at data row 4 below a header on
+    sheet row 5 is sheet row 9. Reference: the row arithmetic of the sheet itself."""
+    rows = _rows()
+    rows[4][1] = "n/a"  # data row 4
+    y = [[r[1]] for r in rows]
+    x = [[r[0]] for r in rows]
+    table = cells.rows_cells(y, x, 1, "top_row=5")
+    assert table[0][0] == "sheet row" and table[1][0] == 6.0
+    assert table[4][0] == 9.0 and table[4][-1] == "dropped: text"
+    checks = {r[0]: r[-1] for r in cells.checks_cells(y, x, 1, "top_row=5")}
+    assert f"are sheet rows 6..{5 + N}" in checks["independence (Durbin-Watson)"]
+    plain = cells.rows_cells(y, x, 1)
+    assert plain[0][0] != "sheet row"
+    # a model the data cannot carry names the sheet row of the offending data row
+    bad = [[r[0]] for r in rows]
+    bad[7] = [-1.0]  # data row 7 is sheet row 12
+    with pytest.raises(cells.CellError, match=r"data row 7 is sheet row 12"):
+        cells.coefs_cells(bad, x, "power", "method=log; top_row=5")
+
+
+def _grouped_csv(path: Path, european: bool) -> Path:
+    """The invented cost data with costs in thousands (x 1,000) written with thousands
+    separators, as a spreadsheet program exports them in either convention."""
+    size, cost = invented_cost_data(N)
+    lines = ["size;cost" if european else "size,cost"]
+    for s, c in zip(size, cost * 1000):
+        us = f"{c:,.2f}"
+        if european:
+            eu = us.replace(",", " ").replace(".", ",").replace(" ", ".")
+            lines.append(f"{s:.6f}".replace(".", ",") + ";" + eu)
+        else:
+            lines.append(f'{s:.6f},"{us}"')
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+@pytest.mark.parametrize("european", [False, True])
+def test_csv_thousands_separators_are_read(tmp_path: Path, capsys, european: bool) -> None:
+    """"12,345.67" (and "12.345,67" beside a decimal comma) is a number, as a spreadsheet
+    program reads it; the fit equals the API's on the same numbers rounded as written.
+    Reference: xlbridge.fit on the plain arrays."""
+    size, cost = invented_cost_data(N)
+    want = xlbridge.fit(np.round(cost * 1000, 2), np.round(size, 6), 1)
+    path = _grouped_csv(tmp_path / "g.csv", european)
+    code, out, err = run(["fit", str(path), "--y", "B:B", "--x", "A:A", "--model", "1",
+                          "--format", "json"], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["stats"]["n_used"] == N and not doc["notes"]
+    got = [c["estimate"] for c in doc["coefficients"]]
+    np.testing.assert_allclose(got, want.estimates, rtol=1e-12)
+
+
+@settings(max_examples=200, derandomize=True)
+@given(st.floats(min_value=-1e12, max_value=1e12, allow_nan=False))
+def test_csv_grouped_number_text_round_trips(value: float) -> None:
+    """Property: a number written with thousands separators in either convention reads
+    back as the number written with two decimals (Python's own formatting is the
+    reference)."""
+    from xlbridge.book.csvbook import csv_value
+
+    us = f"{value:,.2f}"
+    eu = us.replace(",", " ").replace(".", ",").replace(" ", ".")
+    want = float(f"{value:.2f}")
+    assert csv_value(us) == want
+    assert csv_value(eu, decimal_comma=True) == want

@@ -85,7 +85,7 @@ def test_label_words_mark_a_total() -> None:
     size, cost = _jobs()
     inp = cells.prepare_fit(cost.tolist() + [1.0], size.tolist() + [2.0], 1,
                             labels=[f"job {i}" for i in range(20)] + ["Grand Total"])
-    assert inp.drops == (("total row", 1),) and "its label reads like a total" in inp.notes[0]
+    assert inp.drops == (("total", 1),) and "its label reads like a total" in inp.notes[0]
 
 
 def test_ordinary_data_are_not_totals() -> None:

@@ -40,14 +40,14 @@ def test_json_carries_the_notes(book, capsys, command):
     assert code == 0, err
     notes = json.loads(out)["notes"]
     if command != "degrees":  # the scan fits its own columns; the fit's notes elsewhere
-        assert "1 row dropped (blank 1)" in notes and "rows left out: sheet row 5" in notes
+        assert "1 row dropped (blank 1): sheet row 5" in notes
 
 
 def test_csv_carries_the_notes_and_whole_numbers(book, capsys):
     code, out, _ = run(["fit", book, "--y", Y, "--x", X, "--model", "2", "--format", "csv"],
                        capsys)
     rows = list(csv.reader(io.StringIO(out)))
-    assert ["notes", "", "rows left out: sheet row 5"] in rows
+    assert ["notes", "", "1 row dropped (blank 1): sheet row 5"] in rows
     used = next(r for r in rows if len(r) > 2 and r[1] == "rows used")
     assert used[2] == "39"  # 40 rows, one blank; not 39.0
     code, out, _ = run(["degrees", book, "--y", Y, "--x", X, "--max-degree", "3", "--format",

@@ -96,7 +96,7 @@ def test_checks_and_notes_name_sheet_rows(book, capsys):
     assert found["outliers"]["sheet_row"] == OUTLIER + 1
     code, out, _ = run(["fit", book, "--y", "Data!C:C", "--x", "Data!B:B", "--model", "2"],
                        capsys)
-    assert f"note: rows left out: sheet row {BLANK + 1}" in out
+    assert f"note: 1 row dropped (blank 1): sheet row {BLANK + 1}" in out
 
 
 def test_influence_figure_uses_the_same_rule():

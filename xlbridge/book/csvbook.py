@@ -11,18 +11,24 @@ from typing import Any
 from xlbridge.book.safety import BookError, reader_guard
 from xlbridge.book.workbook import Book, SheetData
 
-__all__ = ["CsvBook", "DELIMITERS", "sniff_dialect"]
+__all__ = ["CsvBook", "DELIMITERS", "csv_value", "sniff_dialect"]
 
 
 _NUM = re.compile(r"^\s*[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?\s*$")
 _COMMA_NUM = re.compile(r"^\s*[+-]?\d+,\d+([eE][+-]?\d+)?\s*$")
+# thousands grouped the usual way: by commas beside a decimal point ("12,345.6"), by
+# points or (narrow) spaces beside a decimal comma ("12.345,6", "12 345,6")
+_GROUPED = re.compile(r"^\s*[+-]?\d{1,3}(,\d{3})+(\.\d*)?\s*$")
+_GROUPED_COMMA = re.compile(r"^\s*[+-]?\d{1,3}([.\u00a0\u202f ]\d{3})+(,\d*)?\s*$")
+_GROUP_MARKS = str.maketrans("", "", ".\u00a0\u202f ")
 _SAMPLE = 65536
 DELIMITERS = {"comma": ",", "semicolon": ";", "tab": "\t"}
 
 
-def _csv_value(text: str, decimal_comma: bool = False) -> Any:
+def csv_value(text: str, decimal_comma: bool = False) -> Any:
     """CSV text -> the value a spreadsheet program would put in the cell (``1,5`` is 1.5
-    when the file writes a decimal comma)."""
+    when the file writes a decimal comma; ``12,345.6`` is 12345.6, and with a decimal comma
+    ``12.345,6`` and ``12 345,6`` are too)."""
     s = text.strip()
     if s == "":
         return None
@@ -30,6 +36,10 @@ def _csv_value(text: str, decimal_comma: bool = False) -> Any:
         return float(s)
     if decimal_comma and _COMMA_NUM.match(s):
         return float(s.replace(",", "."))
+    if not decimal_comma and _GROUPED.match(s):
+        return float(s.replace(",", ""))
+    if decimal_comma and _GROUPED_COMMA.match(s):
+        return float(s.translate(_GROUP_MARKS).replace(",", "."))
     up = s.upper()
     if up == "TRUE":
         return True
@@ -57,7 +67,8 @@ def sniff_dialect(sample: str, delimiter: str | None = None) -> tuple[str, bool]
             delim = csv.Sniffer().sniff(sample, delimiters=",;\t").delimiter
         except csv.Error:
             delim = ","
-    comma = delim != "," and any(_COMMA_NUM.match(f) for ln in lines for f in ln.split(delim))
+    comma = delim != "," and any(_COMMA_NUM.match(f) or (_GROUPED_COMMA.match(f) and "," in f)
+                                 for ln in lines for f in ln.split(delim))
     return delim, comma
 
 
@@ -85,7 +96,7 @@ class CsvBook(Book):
             decimal_comma = comma
         self.delimiter, self.decimal_comma = delim, decimal_comma
         with reader_guard(path.name):
-            grid = [[_csv_value(v, decimal_comma) for v in row]
+            grid = [[csv_value(v, decimal_comma) for v in row]
                     for row in csv.reader(io.StringIO(text), delimiter=delim)]
         while grid and all(v is None for v in grid[-1]):
             grid.pop()

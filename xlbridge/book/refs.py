@@ -21,6 +21,7 @@ __all__ = [
     "TableRef",
     "col_letters",
     "col_number",
+    "misaligned",
     "parse_ref",
     "quote_sheet",
 ]
@@ -396,3 +397,17 @@ def parse_ref(text: str) -> Area | NameRef | TableRef:
     if _NAME.match(body) and not _R1C1_LIKE.match(body):
         return NameRef(body, sheet)
     raise RefError(f"{whole!r} is not a reference; {_SYNTAX_HELP}")
+
+
+def misaligned(spans: list[tuple[str, Area]]) -> str | None:
+    """Ranges read side by side, paired row by row ((what, area), the first the reference):
+    the first pair that starts or ends on different sheet rows, in words, or None."""
+    if len(spans) < 2:
+        return None
+    what0, a0 = spans[0]
+    for what, a in spans[1:]:
+        for end, r0, r in (("start", a0.r1, a.r1), ("end", a0.r2, a.r2)):
+            if r0 != r:
+                return (f"{what0} {a0.label()} and {what} {a.label()} {end} on different "
+                        f"sheet rows ({r0} vs {r}); rows are paired by position")
+    return None

@@ -73,14 +73,16 @@ def card_caption(field: str) -> str:
     return CARD_CAPTIONS.get(field, field)
 
 
-def run_engine(fn: Callable[[], Any], header_rows: int) -> Any:
+def run_engine(fn: Callable[[], Any], header_rows: int, top_row: int | None = None) -> Any:
     """Call an engine function; its ModelError becomes a cell error that places the data
-    row it names in the selected range."""
+    row it names on the sheet (``top_row``: the sheet row of the selection's first row) or
+    in the selected range."""
     try:
         return fn()
     except ModelError as exc:
-        raise CellError.from_model(exc, str(exc) + sheet_row_text(exc.row, header_rows)) \
-            from None
+        first = None if top_row is None else top_row + header_rows
+        raise CellError.from_model(exc, str(exc).rstrip(".") + sheet_row_text(
+            exc.row, header_rows, first)) from None
 
 
 # --- percentiles of a new estimate ---------------------------------------------------------
@@ -157,7 +159,8 @@ def candidates_fit(y: Any, drivers: Any, options: Any = None, *,
         alpha = float(f"{1 - o.level:.12g}")  # 0.05, not 1 - 0.95 in binary
         return run_engine(lambda: compare_candidates(
             inp.y, inp.x, names, forms=o.forms, methods=o.methods, max_drivers=o.max_drivers,
-            alpha=alpha, vif_limit=o.vif_limit, progress=progress), inp.header_rows)
+            alpha=alpha, vif_limit=o.vif_limit, progress=progress), inp.header_rows,
+            o.top_row)
 
     return SCAN_CACHE.get_or_compute(key, compute), o
 
@@ -184,19 +187,23 @@ def _learning_inputs(units: Any, costs: Any, opts: Options
     return u, c, int(u.names is not None or c.names is not None)
 
 
-def learning_fit(units: Any, costs: Any, options: Any = None
+def learning_fit(units: Any, costs: Any, options: Any = None, *, top_row: int | None = None
                  ) -> tuple[LearningCurve, Options, tuple[tuple[str, int], ...]]:
-    """The fitted curve, the options and the rows the cell rules dropped."""
+    """The fitted curve, the options and the rows the cell rules dropped (``top_row``, the
+    sheet row of the selections' first row, when the caller knows it)."""
     opts = options_value(options)
+    if top_row is not None:
+        opts = opts.replace(top_row=top_row)
     u, c, head = _learning_inputs(units, costs, opts)
     drops = drop_summary(row_codes(u.codes, c.codes))
     cost = c.values[:, 0]
     if u.n_cols == 1:
         curve = run_engine(lambda: learning_curve(u.values[:, 0], cost, opts.theory,
-                                                  level=opts.level), head)
+                                                  level=opts.level), head, opts.top_row)
     else:
         curve = run_engine(lambda: learning_curve(None, cost, opts.theory, first=u.values[:, 0],
-                                                  last=u.values[:, 1], level=opts.level), head)
+                                                  last=u.values[:, 1], level=opts.level), head,
+                           opts.top_row)
     return curve, opts, drops
 
 

@@ -109,15 +109,18 @@ def checks_table(result: FitResult, options: Options | None = None,
     rows: list[list[Any]] = [list(CHECK_CAPTIONS)] if opts.header else []
     for c in checks(result):
         row = [getattr(c, f) for f in CHECK_COLUMNS]
-        if c.row is not None and first_row is not None:
+        if first_row is not None and c.row is not None:
             row[-1] += f"; row {c.row} is sheet row {sheet_row(c.row, first_row)}"
+        if first_row is not None and c.span is not None:
+            lo, hi = (sheet_row(r, first_row) for r in c.span)
+            row[-1] += f"; rows {c.span[0]}..{c.span[1]} are sheet rows {lo}..{hi}"
         rows.append(row)
     return finish_table(rows)
 
 
 def checks_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
-    res, opts = fit_cells(y, x, model, options)
-    return checks_table(res, opts)
+    inp = prepare_fit(y, x, model, options)
+    return checks_table(fit_prepared(inp), inp.options, inp.first_row)
 
 
 def rows_table(result: FitResult, options: Options | None = None, *,
@@ -150,7 +153,7 @@ def rows_cells(y: Any, x: Any, model: Any, options: Any = None) -> Table:
     inp = prepare_fit(y, x, model, options)
     res = fit_prepared(inp)
     # say why a row was left out, as the cell rules saw it
-    return rows_table(res, inp.options, row_codes=inp.row_codes)
+    return rows_table(res, inp.options, first_row=inp.first_row, row_codes=inp.row_codes)
 
 
 def optimum_captions(level: float) -> list[str]:

@@ -200,6 +200,12 @@ class Options:
         "rows that look like totals (y and x the sum or mean of the rows above, or a "
         "label such as 'total'): drop = leave them out with a note, keep = fit them",
     )
+    top_row: int | None = _opt(
+        None, _auto_or(_whole_between(1, 1_048_576)), "a sheet row number, or auto",
+        "the sheet row of the first row of the y selection (its header row, if any), e.g. "
+        "top_row=2: notes, checks and row tables then name sheet rows (auto: data rows, "
+        "counted from the first row of data)", show=lambda v: "auto" if v is None else str(v),
+    )
     # the valid se and error values are the engine's (one list each)
     se: str = _opt(
         "ols", _choice(*SE_TYPES), _listed(SE_TYPES),

@@ -65,6 +65,7 @@ class FitInput:
     row_codes: np.ndarray  # per data row: 0 usable, else why it was dropped (drop_reason)
     weights: np.ndarray | None = None
     notes: tuple[str, ...] = ()  # what the guard rails found (totals, text numbers, ...)
+    top_row: int | None = None  # sheet row of the selection's first row, when known
 
     @property
     def header_rows(self) -> int:
@@ -75,12 +76,16 @@ class FitInput:
     def n_dropped(self) -> int:
         return sum(n for _, n in self.drops)
 
+    @property
+    def first_row(self) -> int | None:
+        """Sheet row of data row 1 (below the header rows), when known."""
+        return None if self.top_row is None else self.top_row + self.header_rows
 
     def key(self) -> str:
         """Content hash of everything that changes the fit."""
         return content_key("fit", self.y, self.x, self.names, self.response, self.model,
                            sorted(self.options.fit_kwargs().items()), self.weights,
-                           self.notes)
+                           self.notes, self.top_row)
 
 
 def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
@@ -94,8 +99,11 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     (unless totals=keep; ``labels`` are the cells of a label column, one per row, whose
     words can mark a total), numbers stored as text are counted, a fit leaving out more
     than a fifth of its rows and a y that looks like a driver are named. ``first_row`` is
-    the sheet row of the first cell of y, so that notes name sheet rows."""
+    the sheet row of the first cell of y (else the options' top_row), so that notes and
+    messages name sheet rows."""
     opts = options_value(options)
+    if first_row is None:
+        first_row = opts.top_row
     mod = model_value(model)
     y_grid = grid_of(y, "y").transposed_line()  # a row of y values reads as a column
     if y_grid.cols > 1:
@@ -167,25 +175,39 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
         wv = np.where(codes == OK, wv, np.nan)
     response = yc.names[0] if yc.names else None
     return FitInput(yv, xv, xc.names, response, mod, opts, drop_summary(codes), codes, wv,
-                    tuple(notes))
+                    tuple(notes), first_row)
+
+
+def dropped_rows_note(inp: FitInput) -> str:
+    """``"2 rows dropped (text 1, total 1)"``, naming the sheet rows when they are known."""
+    text = drops_text(inp.drops)
+    if inp.first_row is None:
+        return text
+    rows = np.flatnonzero(inp.row_codes != OK) + 1
+    return f"{text}: {sheet_rows_text(rows, inp.first_row)}"
 
 
 def model_failure(exc: ModelError, inp: FitInput) -> CellError:
     """The engine's refusal of a fit as a cell error; when it found too few rows or
     distinct x values, say how many rows the cell rules removed."""
-    text = str(exc)
+    text = str(exc).rstrip(".")
     if inp.drops and getattr(exc, "kind", None) is ModelErrorKind.SHORTAGE:
         text += f" ({drops_text(inp.drops)} for blank, text or error cells)"
     if is_form(inp.model) and inp.options.method is None:
         text += f" (in the options: method={'|'.join(METHODS)}, e.g. method=mupe)"
-    text += sheet_row_text(getattr(exc, "row", None), inp.header_rows)
+    text += sheet_row_text(getattr(exc, "row", None), inp.header_rows, inp.first_row)
     return CellError.from_model(exc, text)
 
 
-def sheet_row_text(row: int | None, header_rows: int) -> str:
-    """Where the engine's data ``row`` sits in the selected range, when a header row above
-    the data shifts it ("" when the data row is the range's row, or no row is named)."""
-    if row is None or not header_rows:
+def sheet_row_text(row: int | None, header_rows: int, first_row: int | None = None) -> str:
+    """Where the engine's data ``row`` sits: its sheet row when ``first_row`` (the sheet row
+    of data row 1) is known, else its row in the selected range when a header row above the
+    data shifts it ("" when the data row is the range's row, or no row is named)."""
+    if row is None:
+        return ""
+    if first_row is not None:
+        return f" (data row {row} is sheet row {sheet_row(row, first_row)})"
+    if not header_rows:
         return ""
     return (f" (data row {row} is row {row + header_rows} of the selected range, counting "
             "its header row)")
@@ -202,8 +224,8 @@ def _fit_now(inp: FitInput) -> FitResult:
     if inp.response and inp.response != res.response:
         changes["response"] = inp.response
     if inp.drops or inp.notes:
-        changes["notes"] = (tuple(res.notes) + inp.notes
-                            + ((drops_text(inp.drops),) if inp.drops else ()))
+        changes["notes"] = tuple(res.notes) + inp.notes + (
+            (dropped_rows_note(inp),) if inp.drops else ())
     if res.n_dropped != inp.n_dropped:
         # the engine drops exactly the NaN rows we hand it; keep the cell-level count
         changes["n_dropped"] = inp.n_dropped

@@ -55,7 +55,7 @@ SHAPE = CellErrorKind.SHAPE
 
 OK, BLANK, BOOL, TEXT, NONFINITE, ERROR, TOTAL = range(7)
 _REASON = {BLANK: "blank", BOOL: "true/false", TEXT: "text", NONFINITE: "not finite",
-           ERROR: "error value", TOTAL: "total row"}
+           ERROR: "error value", TOTAL: "total"}
 # a number stored as text is read as that number (one rule for every reader and the API);
 # the cell's code says so until clean_cells records it and makes it OK
 TEXT_NUMBER = -1

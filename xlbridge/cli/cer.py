@@ -20,6 +20,7 @@ from .common import (
     as_failure,
     as_usage,
     base_year_y,
+    check_alignment,
     csv_text,
     emit,
     emit_tables,
@@ -161,11 +162,12 @@ def run_learning(args: argparse.Namespace) -> int:
     if args.at:
         refs.append(("at", args.at))
     areas = resolve(book, refs, sheet)
+    check_alignment([(*refs[i], areas[i]) for i in (1, 0)], getattr(args, "strict", False))
     units = read_ref(book, args.units, "units", areas[0])[1]
     costs = read_ref(book, args.costs, "costs", areas[1])[1]
     at = read_ref(book, args.at, "at", areas[2])[1] if args.at else None
     with as_usage():
-        curve, opts, drops = learning_fit(units, costs, args.options)
+        curve, opts, drops = learning_fit(units, costs, args.options, top_row=areas[1].r1)
         rows = learning_table(curve, at, opts.replace(header=True), drops=drops)
         costs = lot_costs(curve, at) if at is not None else []
     if drops:

@@ -296,19 +296,14 @@ def open_book(path: str, args: argparse.Namespace | None = None) -> Any:
 def check_alignment(spans: Sequence[tuple[str, str, Any]], strict: bool) -> None:
     """Ranges read together (option, REF text, area) that start or end on different sheet
     rows: a warning naming both spans, or with ``strict`` a usage error."""
-    if len(spans) < 2:
+    from xlbridge.book.refs import misaligned
+
+    text = misaligned([(f"--{what}", area) for what, _, area in spans])
+    if text is None:
         return
-    what0, ref0, a0 = spans[0]
-    for what, ref, a in spans[1:]:
-        for end, r0, r in (("start", a0.r1, a.r1), ("end", a0.r2, a.r2)):
-            if r0 == r:
-                continue
-            text = (f"--{what0} {ref0} and --{what} {ref} {end} on different rows "
-                    f"({r0} vs {r}); rows are paired by position")
-            if strict:
-                raise UsageError(text + " (--strict)")
-            warn(text)
-            break
+    if strict:
+        raise UsageError(text + " (--strict)")
+    warn(text)
 
 
 def resolve(book: Any, refs: Sequence[tuple[str, str]], sheet: str | None) -> list[Any]:
@@ -419,16 +414,6 @@ def fit_from_args(args: argparse.Namespace, model: Any = None, *, cer: bool = Fa
     with as_failure():
         result = cells.fit_prepared(inp)
     fitted = Fitted(book, y_area, x_area, inp, result)
-    if result.n_dropped:  # name the rows left out where a person can find them
-        import dataclasses
-
-        import numpy as np
-
-        from xlbridge.cells.prepare import sheet_rows_text
-
-        gone = np.flatnonzero(~np.asarray(result.used)) + 1
-        fitted.result = dataclasses.replace(result, notes=tuple(result.notes) + (
-            f"rows left out: {sheet_rows_text(gone, fitted.first_row)}",))
     if "label" in areas:
         fitted.labels = _labels(book, args.label, areas["label"], fitted.first_row,
                                 len(inp.y))

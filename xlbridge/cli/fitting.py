@@ -152,6 +152,8 @@ def run_checks(args: argparse.Namespace) -> int:
     found = [c.to_dict() for c in checks(f.result)]
     for c in found:
         c["sheet_row"] = None if c["row"] is None else sheet_row(c["row"], f.first_row)
+        c["sheet_span"] = None if c["span"] is None else [sheet_row(r, f.first_row)
+                                                          for r in c["span"]]
     doc = {"model": f.result.to_dict()["model"], "checks": found}
     return emit_tables(args, f, "checks", table, doc, f", model {f.result.model_text}")
 

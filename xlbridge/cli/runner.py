@@ -18,12 +18,35 @@ from .common import (
     info,
     json_text,
     open_book,
+    warn,
 )
 
 __all__ = ["configure_recalc", "run_recalc", "configure_pin", "run_pin", "configure_verify",
            "run_verify"]
 
 SUMMARY_FORMATS = ("table", "json")
+
+
+def _add_strict(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--strict", action="store_true",
+                   help="an XB_ call whose y, x, weights or group ranges start or end on "
+                        "different sheet rows fails (by default: a warning)")
+
+
+def _evaluate(book: Any, what: str, strict: bool) -> Any:
+    """Every XB_ formula of ``book`` evaluated, with a warning line for each call whose
+    paired ranges sit on different sheet rows."""
+    from xlbridge.runner.recalc import evaluate_book
+
+    progress = Progress(what)
+    try:
+        evaluation = evaluate_book(book, None, progress, strict=strict)
+    finally:
+        progress.close()
+    for x in evaluation.cells:
+        if x.warning and x.ok:
+            warn(f"{x.label} {x.function}: {x.warning}")
+    return evaluation
 
 
 def configure_recalc(p: argparse.ArgumentParser) -> None:
@@ -37,6 +60,7 @@ def configure_recalc(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", type=choice(SUMMARY_FORMATS, "format"),
                    choices=list(SUMMARY_FORMATS), default="table",
                    help="summary format (default table)")
+    _add_strict(p)
 
 
 def _cell_rows(evaluation: Any, written: dict[str, str]) -> list[dict[str, Any]]:
@@ -51,7 +75,6 @@ def _cell_rows(evaluation: Any, written: dict[str, str]) -> list[dict[str, Any]]
 
 def run_recalc(args: argparse.Namespace) -> int:
     from xlbridge.book.safety import check_output
-    from xlbridge.runner.recalc import evaluate_book
     from xlbridge.runner.write import write_copy
 
     book = open_book(args.book)
@@ -62,11 +85,7 @@ def run_recalc(args: argparse.Namespace) -> int:
         raise UsageError(f"--out {args.out.name}: the copy of {src.name} must end in "
                          f"{src.suffix.lower()}")
     check_output(args.out, force=args.force, inputs=[src])
-    progress = Progress("recalc")
-    try:
-        evaluation = evaluate_book(book, None, progress)
-    finally:
-        progress.close()
+    evaluation = _evaluate(book, "recalc", args.strict)
     if not evaluation.cells:
         info(f"xlbridge: no XB_ formulas found in {src.name}; nothing written")
         return EXIT_OK
@@ -100,17 +119,7 @@ def configure_pin(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", type=Path, required=True, metavar="PINS.json",
                    help="the pin file to write")
     p.add_argument("--force", action="store_true", help="replace the pin file if it exists")
-
-
-def _evaluate_for_pins(path: str, what: str) -> Any:
-    from xlbridge.runner.recalc import evaluate_book
-
-    book = open_book(path)
-    progress = Progress(what)
-    try:
-        return evaluate_book(book, None, progress)
-    finally:
-        progress.close()
+    _add_strict(p)
 
 
 def run_pin(args: argparse.Namespace) -> int:
@@ -119,7 +128,7 @@ def run_pin(args: argparse.Namespace) -> int:
     from xlbridge.runner.pins import pins_document
 
     check_output(args.out, force=args.force, inputs=[Path(args.book)])
-    evaluation = _evaluate_for_pins(args.book, "pin")
+    evaluation = _evaluate(open_book(args.book), "pin", args.strict)
     if not evaluation.cells:
         raise UsageError(f"no XB_ formulas found in {Path(args.book).name}; nothing to pin")
     doc = pins_document(evaluation, __version__)
@@ -128,7 +137,7 @@ def run_pin(args: argparse.Namespace) -> int:
     print(f"xlbridge pin: {len(evaluation.cells)} XB_ results of {evaluation.book.path.name} "
           f"pinned to {args.out}" + (f" ({len(failed)} are error messages)" if failed else ""))
     for x in failed:
-        info(f"  warning: {x.label} {x.function}: {x.message}")
+        warn(f"{x.label} {x.function} pinned as an error message: {x.message}")
     return EXIT_OK
 
 
@@ -143,6 +152,7 @@ def configure_verify(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", type=choice(SUMMARY_FORMATS, "format"),
                    choices=list(SUMMARY_FORMATS), default="table",
                    help="report format (default table)")
+    _add_strict(p)
 
 
 def run_verify(args: argparse.Namespace) -> int:
@@ -152,7 +162,7 @@ def run_verify(args: argparse.Namespace) -> int:
             args.atol >= 0 and math.isfinite(args.atol)):
         raise UsageError("--rtol and --atol must be finite numbers >= 0")
     pins = load_pins(args.pins)
-    evaluation = _evaluate_for_pins(args.book, "verify")
+    evaluation = _evaluate(open_book(args.book), "verify", args.strict)
     drift = compare(pins, evaluation, rtol=args.rtol, atol=args.atol)
     same_file = pins.get("workbook_sha256") == file_sha256(evaluation.book.path)
     if args.format == "json":

@@ -69,6 +69,7 @@ class Check:
     verdict: str
     note: str
     row: int | None = None  # the 1-based data row the note names (front ends add its address)
+    span: tuple[int, int] | None = None  # the first and last data row the note names
 
     def to_dict(self) -> dict:
         def plain(v):
@@ -76,7 +77,7 @@ class Check:
 
         return {"check": self.check, "statistic": plain(self.statistic),
                 "p_value": plain(self.p_value), "verdict": self.verdict, "note": self.note,
-                "row": self.row}
+                "row": self.row, "span": None if self.span is None else list(self.span)}
 
 
 def _whitened(res: FitResult) -> np.ndarray:
@@ -327,7 +328,8 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         rows = np.flatnonzero(res.used) + 1
         out.append(Check("independence (Durbin-Watson)", dw, math.nan, verdict,
                          f"residuals in input row order (rows {rows[0]}..{rows[-1]}, "
-                         f"{res.n_dropped} dropped); near 2 is ok, rule of thumb |DW-2| <= 0.5"))
+                         f"{res.n_dropped} dropped); near 2 is ok, rule of thumb |DW-2| <= 0.5",
+                         span=(int(rows[0]), int(rows[-1]))))
 
     internal, external, cooks, bonf = _influence(res)
     rows = np.flatnonzero(res.used) + 1

@@ -20,7 +20,7 @@ from typing import Any
 
 from xlbridge.book.formulas import FormulaCell, FormulaIndex, formula_index
 from xlbridge.book.reader import Book, missing_value_message, xlwings_shape
-from xlbridge.book.refs import Area, RefError
+from xlbridge.book.refs import Area, RefError, misaligned
 from xlbridge.book.safety import BookError
 from xlbridge.book.values import is_message_cell
 from xlbridge.runner.formula import (
@@ -36,7 +36,8 @@ from xlbridge.runner.formula import (
     reference_texts,
 )
 
-__all__ = ["BadCall", "CircularReference", "EvaluationError", "Evaluation", "NoInputValue",
+__all__ = ["BadCall", "CircularReference", "EvaluationError", "Evaluation", "Misaligned",
+           "NoInputValue",
            "XbCell", "evaluate_book"]
 
 Progress = Callable[[int, int, str], None]
@@ -51,6 +52,7 @@ class XbCell:
     result: list[list[Any]] | None = None
     message: str | None = None  # "xlbridge: ..." when there is no result
     reads: list[Area] = field(default_factory=list)
+    warning: str | None = None  # ranges paired by row that sit on different sheet rows
 
     @property
     def sheet(self) -> str:
@@ -117,6 +119,14 @@ class BadCall(EvaluationError):
     reference that does not resolve in this workbook."""
 
 
+class Misaligned(EvaluationError):
+    """Ranges paired row by row start or end on different sheet rows (strict runs only)."""
+
+
+#: Arguments of the XB_ functions whose ranges are paired row by row with y (the first).
+PAIRED = ("y", "x", "weights", "group", "drivers", "units", "costs", "years")
+
+
 @dataclass
 class Evaluation:
     """The XB_ cells of a workbook, evaluated."""
@@ -137,8 +147,9 @@ class Evaluation:
 
 class _Evaluator:
     def __init__(self, book: Book, formulas: FormulaIndex,
-                 functions: dict[str, Callable[..., Any]]) -> None:
+                 functions: dict[str, Callable[..., Any]], strict: bool = False) -> None:
         self.book = book
+        self.strict = strict
         self.formulas = formulas
         self.functions = functions
         self.cells: list[XbCell] = []
@@ -311,6 +322,12 @@ class _Evaluator:
         except (BookError, RefError) as exc:
             raise BadCall(str(exc)) from exc
         areas = {id(a): area for a, area in zip(refs, resolved)}
+        me.warning = misaligned(sorted(
+            ((p.name, areas[id(a)]) for p, a in zip(params, call.args)
+             if p.name in PAIRED and isinstance(a, Ref)),
+            key=lambda pa: PAIRED.index(pa[0])))
+        if me.warning and self.strict:
+            raise Misaligned(me.warning + " (--strict)")
         values = [self._arg(a, me, areas) for a in call.args]
         result = fn(*values)
         table = _as_table(result)
@@ -469,13 +486,15 @@ def _worksheet_functions() -> dict[str, Callable[..., Any]]:
 
 
 def evaluate_book(book: Book, workbook: Any = None, progress: Progress | None = None,
-                  functions: dict[str, Callable[..., Any]] | None = None) -> Evaluation:
+                  functions: dict[str, Callable[..., Any]] | None = None,
+                  strict: bool = False) -> Evaluation:
     """Find and evaluate every XB_ formula of ``book`` (``workbook``: an open openpyxl copy
-    whose formulas to use; by default they are read from the file)."""
+    whose formulas to use; by default they are read from the file). A call whose paired
+    ranges sit on different sheet rows gets a warning, or with ``strict`` an error cell."""
     if book.kind == "csv":
         raise BookError(f"{book.path.name} is a CSV file; it holds no formulas to evaluate "
                         "(give the .xlsx or .xlsm workbook)")
     formulas = formula_index(book, workbook)
-    ev = _Evaluator(book, formulas, functions or _worksheet_functions())
+    ev = _Evaluator(book, formulas, functions or _worksheet_functions(), strict)
     ev.run(progress)
     return Evaluation(book, ev.cells, formulas, ev.n_reads)
