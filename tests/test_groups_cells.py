@@ -60,6 +60,10 @@ def test_groups_function_messages():
     X = [[float(v)] for v in size]
     assert "same height" in ws.XB_GROUPS(G[:-3], Y, X, 2.0)[0][0]
     assert "not available for grouped fits" in ws.XB_GROUPS(G, Y, X, 2.0, "log=yes")[0][0]
+    # a CER form is named as such, with what to use instead (not "unknown model")
+    cer = ws.XB_GROUPS(G, Y, X, "Power", "method=log")[0][0]
+    assert cer.startswith("xlbridge: grouped fits take polynomial and surface models; a power")
+    assert "XB_COEFS" in cer and "unknown model" not in cer
 
 
 def test_groups_cli_json_equals_api(tmp_path, capsys):

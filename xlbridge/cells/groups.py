@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..engine import ModelError
+from ..engine.cer import is_form
 from .errors import CellError, CellErrorKind, Table
 from .options import Options
 from .prepare import prepare_fit
@@ -28,6 +29,12 @@ def groups_fit(group: Any, y: Any, x: Any, model: Any, options: Any = None, *,
     from ..engine import fit_groups  # grouped fits load their solver only when used
 
     inp = prepare_fit(y, x, model, options, weights=weights)
+    if is_form(inp.model):
+        raise CellError(f"grouped fits take polynomial and surface models; a "
+                        f"{str(inp.model).strip().lower()} CER "
+                        "is fitted one group at a time: select one group's rows (a filtered "
+                        "copy or one range per group) and use XB_COEFS or XB_CERCARD with "
+                        "that model", CellErrorKind.OPTIONS)
     unsupported = [k for k in ("log", "se", "error")
                    if getattr(inp.options, k) != getattr(Options(), k)]
     if unsupported:
