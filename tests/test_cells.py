@@ -292,6 +292,29 @@ def test_same_data_fits_once_across_functions(monkeypatch):
     assert len(calls) == 4
 
 
+def test_shared_arguments_clean_the_same_objects_once():
+    """Inside shared_arguments the same argument objects give the same cleaned input
+    (what prepare_fit gives outside it); equal content in other objects, another model or
+    the end of the block cleans again; the shared arrays cannot be changed."""
+    x, y = invented()
+    y, x = ["cost", *y], ["size", *x]
+    alone = prepare.prepare_fit(y, x, 2.0)
+    with prepare.shared_arguments():
+        a = prepare.prepare_fit(y, x, 2.0)
+        assert prepare.prepare_fit(y, x, 2.0) is a
+        assert prepare.prepare_fit(list(y), x, 2.0) is not a
+        assert prepare.prepare_fit(y, x, 2) is not a  # the int model is another argument
+        assert prepare.prepare_fit(y, x, 3.0).model == 3
+        with pytest.raises(ValueError):
+            a.y[0] = 0.0
+    assert prepare.prepare_fit(y, x, 2.0) is not a
+    np.testing.assert_array_equal(a.y, alone.y)
+    np.testing.assert_array_equal(a.x, alone.x)
+    assert (a.names, a.response, a.drops, a.notes) == (alone.names, alone.response,
+                                                       alone.drops, alone.notes)
+    assert a.key() == alone.key()
+
+
 def test_cache_is_bounded_and_errors_are_not_cached():
     from xlbridge.cells.cache import LRUCache
 

@@ -373,10 +373,21 @@ def test_results_that_would_overlap(tmp_path: Path) -> None:
     assert report.conflicts and report.written == 1
 
 
-def test_each_range_is_read_once_and_fitted_once(tmp_path: Path) -> None:
-    """Five formulas over the same y and x: two reads of the book, one fit in the cache,
-    and every result still equals the function called on its own."""
+def test_each_range_is_read_once_and_fitted_once(tmp_path: Path, monkeypatch) -> None:
+    """Five formulas over the same y and x: two reads of the book, the two ranges cleaned
+    once each, one fit in the cache, and every result still equals the function called on
+    its own."""
+    from xlbridge.cells import prepare
     from xlbridge.cells.cache import FIT_CACHE
+
+    cleaned: list[str] = []
+    real_clean = prepare.clean_cells
+
+    def counted(value, what="x", **kw):
+        cleaned.append(what)
+        return real_clean(value, what, **kw)
+
+    monkeypatch.setattr(prepare, "clean_cells", counted)
 
     y, x = f"{D}!B1:B41", f"{D}!A1:A41"
     formulas = {"Model": {"A1": ArrayFormula("A1:I4", f"=XB_COEFS({y},{x},2)"),
@@ -389,6 +400,7 @@ def test_each_range_is_read_once_and_fitted_once(tmp_path: Path) -> None:
     ev = evaluate_book(open_book(src))
     assert all(c.ok for c in ev.cells)
     assert ev.reads == 2
+    assert sorted(cleaned) == ["x", "y"]
     assert FIT_CACHE.misses == 1 and FIT_CACHE.hits >= 4
     yv, xv = _data()
     got = {c.label: c.result for c in ev.cells}

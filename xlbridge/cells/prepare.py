@@ -9,7 +9,11 @@ be fitted is the engine's rule (``engine.fit``), whose message reaches the cell 
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, replace
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -45,8 +49,8 @@ from .values import (
 )
 
 __all__ = ["FitInput", "prepare_fit", "fit_prepared", "fit_cells", "model_failure",
-           "polynomial_cells", "polynomial_prepared", "sheet_row", "sheet_row_text",
-           "sheet_rows_text"]
+           "polynomial_cells", "polynomial_prepared", "shared_arguments", "sheet_row",
+           "sheet_row_text", "sheet_rows_text"]
 
 SHAPE = CellErrorKind.SHAPE
 
@@ -83,9 +87,33 @@ class FitInput:
 
     def key(self) -> str:
         """Content hash of everything that changes the fit."""
+        return self._key
+
+    @cached_property
+    def _key(self) -> str:
+        # a FitInput shared by several functions (shared_arguments) is hashed once
         return content_key("fit", self.y, self.x, self.names, self.response, self.model,
                            sorted(self.options.fit_kwargs().items()), self.weights,
                            self.notes, self.top_row)
+
+
+#: FitInputs prepared inside ``shared_arguments()``, by the identity of the arguments
+_SHARED: ContextVar[dict[tuple, tuple[FitInput, tuple]] | None] = ContextVar(
+    "xlbridge_shared_arguments", default=None)
+_SCALARS = (str, int, float, bool, type(None))
+
+
+@contextmanager
+def shared_arguments() -> Iterator[None]:
+    """Within the block, :func:`prepare_fit` cleans the same argument objects once: for a
+    caller that hands one unchanged value of a range to every function reading it (the
+    runner), so that six formulas over the same columns clean them once, not six times.
+    The caller promises not to change those objects inside the block."""
+    token = _SHARED.set({})
+    try:
+        yield
+    finally:
+        _SHARED.reset(token)
 
 
 def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
@@ -100,7 +128,29 @@ def prepare_fit(y: Any, x: Any, model: Any, options: Any = None, *,
     words can mark a total), numbers stored as text are counted, a fit leaving out more
     than a fifth of its rows and a y that looks like a driver are named. ``first_row`` is
     the sheet row of the first cell of y (else the options' top_row), so that notes and
-    messages name sheet rows."""
+    messages name sheet rows.
+    Inside :func:`shared_arguments`, the same argument objects are cleaned once."""
+    memo = _SHARED.get()
+    if memo is None:
+        return _prepare(y, x, model, options, weights, labels, first_row)
+    args = (y, x, model, options, weights, labels, first_row)
+    # scalars by value; anything else by identity, held below so that no other object
+    # can take its id while the block runs
+    key = tuple((type(a), a) if isinstance(a, _SCALARS) else (None, id(a)) for a in args)
+    hit = memo.get(key)
+    if hit is not None:
+        return hit[0]
+    inp = _prepare(*args)
+    for a in (inp.y, inp.x, inp.row_codes, inp.weights):
+        if a is not None:
+            a.flags.writeable = False  # shared by every function given these arguments
+    memo[key] = (inp, args)
+    return inp
+
+
+def _prepare(y: Any, x: Any, model: Any, options: Any, weights: Any, labels: Any,
+             first_row: int | None) -> FitInput:
+    """:func:`prepare_fit` without the sharing."""
     opts = options_value(options)
     if first_row is None:
         first_row = opts.top_row

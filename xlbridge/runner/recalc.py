@@ -496,5 +496,10 @@ def evaluate_book(book: Book, workbook: Any = None, progress: Progress | None = 
                         "(give the .xlsx or .xlsm workbook)")
     formulas = formula_index(book, workbook)
     ev = _Evaluator(book, formulas, functions or _worksheet_functions(), strict)
-    ev.run(progress)
+    from xlbridge.cells.prepare import shared_arguments
+
+    # every formula reading a range gets the one value read for it, never changed: the
+    # cells of a fit are then cleaned once for all the formulas given the same ranges
+    with shared_arguments():
+        ev.run(progress)
     return Evaluation(book, ev.cells, formulas, ev.n_reads)
