@@ -8,6 +8,7 @@ without the hostile part, and openpyxl (an independent reader) for cell values.
 
 from __future__ import annotations
 
+import io
 import json
 import random
 import subprocess
@@ -17,12 +18,14 @@ from pathlib import Path
 
 import openpyxl
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from xlbridge.book import BookError, safety
+from xlbridge.book import BookError, safety, sheetscan
 from xlbridge.book import xlsx as xlsx_reader
 from xlbridge.book.reader import open_book
 from xlbridge.book.refs import Area
-from xlbridge.book.sheetscan import scan_sheet_bytes
+from xlbridge.book.sheetscan import scan_sheet, scan_sheet_bytes
 from xlbridge.book.values import MAX_NAME_CHARS, bounded_name
 
 from .bookfactory import cost_book, replace_part, sha256
@@ -181,6 +184,51 @@ def test_irregular_cells_are_scanned_like_regular_ones() -> None:
         assert scan.formula_box == (5, 3, 5, 3)
     far = scan_sheet_bytes(sheet(b'<row r="2"><c r="A2"/><c\nr="XFD1048576"><v>1</v></c></row>'))
     assert (far.last_row, far.last_col) == (1048576, 16384)
+
+
+_CELLS = st.lists(st.tuples(st.integers(1, 1_048_576), st.integers(1, 16_384),
+                            st.sampled_from(["", "0", "00"]), st.booleans()),
+                  min_size=1, max_size=60)
+
+
+@settings(max_examples=150, deadline=None)
+@given(cells=_CELLS, order=st.sampled_from(["rows", "reversed", "shuffled"]),
+       chunk=st.sampled_from([64, 300, 1 << 22]), odd=st.integers(-1, 70))
+def test_extent_is_the_largest_row_and_column(cells, order, chunk, odd) -> None:
+    """The scan's extent is the largest row and the largest column of any cell, in whatever
+    order the cells are written (rows in order, reversed, shuffled), with leading zeros in
+    the row and pieces of any size; one cell not written the usual way (``odd``) makes the
+    sheet irregular with the same extent. Reference: max over the generated cells."""
+    from openpyxl.utils import get_column_letter
+
+    if order == "rows":
+        cells = sorted(cells)
+    elif order == "reversed":
+        cells = sorted(cells, reverse=True)
+    body = []
+    for i, (r, c, zeros, value) in enumerate(cells):
+        ref = f"{get_column_letter(c)}{zeros if len(zeros + str(r)) <= 7 else ''}{r}"
+        start = f'<c r="{ref}" s="1"' if i != odd else f'<c s="1" r="{ref}"'
+        body.append(f'<row r="{r}" spans="1:2">{start}' + ("><v>1.5</v></c>" if value else "/>")
+                    + "</row>")
+    xml = ('<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main">'
+           f'<sheetData>{"".join(body)}</sheetData></worksheet>').encode()
+    want = (max(r for r, _, _, _ in cells), max(c for _, c, _, _ in cells))
+    whole = scan_sheet_bytes(xml)
+    assert (whole.last_row, whole.last_col) == want
+    assert whole.regular == (not 0 <= odd < len(cells))
+    whole_chunk = sheetscan._CHUNK  # pieces of the chunk size end at a row end
+    try:
+        sheetscan._CHUNK = chunk
+        buf = io.BytesIO()
+        with zipfile.ZipFile(buf, "w") as zf:
+            zf.writestr("s.xml", xml)
+        with zipfile.ZipFile(buf) as zf:
+            pieces = scan_sheet(zf, "s.xml")
+    finally:
+        sheetscan._CHUNK = whole_chunk
+    assert (pieces.last_row, pieces.last_col) == want
+    assert pieces.regular == whole.regular
 
 
 def test_each_sheet_is_scanned_once(tmp_path: Path, monkeypatch) -> None:

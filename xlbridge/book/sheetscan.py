@@ -37,6 +37,12 @@ _HAS_VALUE = re.compile(rb"<" + _P + rb"(?:v>[^<]|is[\s>])")
 _REGULAR_REF = re.compile(rb'<c r="([A-Z]{1,3})([0-9]{1,7})"')
 _IRREGULAR_CELL = re.compile(rb'<c(?! r="[A-Z]{1,3}[0-9]{1,7}")[\s>]')
 _PREFIXED_CELL = re.compile(rb"<[A-Za-z_][\w.-]*:c[\s>]")
+# Quick tests before the regexes above (searches for a literal start are the fast ones,
+# faster than ``in`` on a piece of XML)
+_MAY_ERR = re.compile(rb"t\s*=\s*[\"']e[\"']")
+_MAY_FORMULA = re.compile(rb"<f")
+_MAY_PREFIXED_FORMULA = re.compile(rb":f[\s>/]")
+_MAY_PREFIXED_CELL = re.compile(rb":c[\s>]")
 _ROW_END = b"</row>"
 
 
@@ -78,7 +84,7 @@ def _rc(tag: bytes) -> tuple[int, int] | None:
 
 def _details(piece: bytes, scan: SheetScan) -> None:
     """Error cells and formula cells without a saved value in a piece of regular XML."""
-    if b't="e"' in piece or b"t='e'" in piece:
+    if _MAY_ERR.search(piece):
         for m in _ERR_CELL.finditer(piece):
             rc = _rc(m.group(0))
             if rc is None:
@@ -87,8 +93,14 @@ def _details(piece: bytes, scan: SheetScan) -> None:
             body = piece[m.end(): end.start() if end else m.end()]
             v = _V_TEXT.search(body)
             scan.errors[rc] = v.group(1).decode("utf-8", "replace").strip() if v else "#N/A"
-    # A plain substring test first: the regex, with its optional prefix, tries every "<".
-    if (b"<f" not in piece and b":f" not in piece) or _FORMULA.search(piece) is None:
+    # Quick tests first: the regex, with its optional prefix, tries every "<". Formulas
+    # sit in the cells, after the start of sheetData; numbers and the usual attributes
+    # hold no "f", and a search for one byte is the fastest of all.
+    cells_at = piece.find(b"sheetData", 0, 1 << 16)
+    if (piece.find(b"f", max(cells_at, 0)) < 0
+            or (_MAY_FORMULA.search(piece) is None
+                and _MAY_PREFIXED_FORMULA.search(piece) is None)
+            or _FORMULA.search(piece) is None):
         return
     for m in _FORMULA.finditer(piece):
         start = piece.rfind(b"<", 0, m.start())
@@ -109,16 +121,69 @@ def _details(piece: bytes, scan: SheetScan) -> None:
 
 def _regular_piece(piece: bytes, scan: SheetScan) -> bool:
     """Scan a piece of the XML; False if some cell is not written the usual way."""
-    if _IRREGULAR_CELL.search(piece) or (b":c" in piece and _PREFIXED_CELL.search(piece)):
+    if _MAY_PREFIXED_CELL.search(piece) and _PREFIXED_CELL.search(piece):
         return False
-    cols = set(re.findall(rb'<c r="([A-Z]{1,3})[0-9]', piece))
-    if cols:
-        widest = max(cols, key=lambda c: (len(c), c))
-        scan.last_col = max(scan.last_col, col_number(widest.decode("ascii")))
-        rows = re.findall(rb'<c r="[A-Z]{1,3}([0-9]{1,7})"', piece)
-        scan.last_row = max(scan.last_row, max(map(int, rows)))
+    if not _extent(piece, scan):
+        return False
     _details(piece, scan)
     return True
+
+
+#: Cells are usually written row by row, so the last cell of a piece is in its last row;
+#: the extent is then confirmed by one search for a cell beyond it, which also finds any
+#: cell not written the usual way. Cells in another order raise the bound at each find:
+#: after this many the piece's cells are all read instead.
+_MAX_RAISES = 16
+
+
+def _extent(piece: bytes, scan: SheetScan) -> bool:
+    """Widen the scan's extent to the cells of a piece; False if some cell of it is not
+    written the usual way."""
+    col = col_letters(scan.last_col).encode("ascii") if scan.last_col else b""
+    row = scan.last_row
+    at, start = piece.rfind(b'<c r="'), 0
+    for _ in range(_MAX_RAISES):
+        if at >= 0:
+            m = _REGULAR_REF.match(piece, at)
+            if m is None:
+                return False
+            c, r = m.group(1), int(m.group(2))
+            if (len(c), c) > (len(col), col):
+                col = c
+            row = max(row, r)
+        beyond = _beyond(col, row).search(piece, start)
+        if beyond is None:
+            scan.last_row, scan.last_col = row, col_number(col.decode("ascii")) if col else 0
+            return True
+        # the cells before it are within the smaller bounds, so within the raised ones
+        at = start = beyond.start()
+    if _IRREGULAR_CELL.search(piece):
+        return False
+    cols = set(re.findall(rb'<c r="([A-Z]{1,3})[0-9]', piece))
+    widest = max(cols, key=lambda c: (len(c), c))
+    scan.last_col = max(scan.last_col, col_number(widest.decode("ascii")))
+    rows = re.findall(rb'<c r="[A-Z]{1,3}([0-9]{1,7})"', piece)
+    scan.last_row = max(scan.last_row, max(map(int, rows)))
+    return True
+
+
+def _greater_number(n: int) -> bytes:
+    """A regex matching the decimal numbers above ``n`` (with any leading zeros)."""
+    d = str(n).encode("ascii")
+    alts = [rb"[1-9][0-9]{%d,}" % len(d)]
+    for i in range(len(d)):
+        if d[i] != ord("9"):
+            rest = rb"[0-9]{%d}" % (len(d) - i - 1) if len(d) - i - 1 else b""
+            alts.append(d[:i] + b"[" + bytes([d[i] + 1]) + b"-9]" + rest)
+    return b"0*(?:" + b"|".join(alts) + b")"
+
+
+def _beyond(col: bytes, row: int) -> re.Pattern[bytes]:
+    """The first cell right of column ``col`` or below ``row``, or not written the usual
+    way (``_IRREGULAR_CELL``)."""
+    return re.compile(rb'<c(?: r="(?:' + _greater_letters(col.decode("ascii")) + rb"[0-9]"
+                      + rb"|[A-Z]{1,3}" + _greater_number(row) + rb'")'
+                      + rb'|(?! r="[A-Z]{1,3}[0-9]{1,7}")[\s>])')
 
 
 def scan_sheet_bytes(data: bytes) -> SheetScan:
