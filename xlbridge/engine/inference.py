@@ -67,8 +67,9 @@ def build(
         cov_raw = core.inv_raw * s2
     else:
         cov_scaled = robust_cov(core, x, w, remedy.se)
-        mf = np.array([[float(v) for v in row] for row in basis.raw_map()])
-        cov_raw = mf @ cov_scaled @ mf.T
+        # the map rounded once from double-double (solve's raw_map_pair), the same doubles
+        # as rounding the exact rational map (Basis.raw_map) but without p^2 Fractions
+        cov_raw = core.raw_map @ cov_scaled @ core.raw_map.T
     se = np.sqrt(np.clip(np.diag(cov_raw), 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
         tr = core.beta / se

@@ -197,6 +197,9 @@ class Core:
     error_bound: float  # estimated relative error of the double-precision solve
     basis: Basis
     gram: np.ndarray  # T'WT, scaled basis
+    #: raw-unit coefficients = raw_map @ scaled-basis coefficients (Basis.raw_map, each
+    #: entry rounded once from double-double: raw_map_pair's hi part)
+    raw_map: np.ndarray
 
 
 def _alias_error(spec: ModelSpec, col: int, x: np.ndarray) -> ModelError:
@@ -307,7 +310,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
     bound = _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
                          sst)
     core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
-                gram)
+                gram, m_hi)
     if bound <= ACCEPT_ERROR or not certify:
         return core
     refined = _refined(x, y, w, spec, core, m_hi, m_lo) if n * p <= REFINE_BUDGET else None
@@ -370,7 +373,7 @@ def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
     return Core(b=ref.b_hi, inv_scaled=ref.inv_hi, beta=beta, inv_raw=inv_raw,
                 residuals=resid, leverage=core.leverage, sse=ref.sse, sst=sst,
                 cond=core.cond, method="refined", error_bound=bound, basis=basis,
-                gram=core.gram)
+                gram=core.gram, raw_map=m_hi)
 
 
 def weighted_sst(y: np.ndarray, w: np.ndarray | None) -> float:
@@ -490,4 +493,5 @@ def _exact_core(x, y, w, spec: ModelSpec, basis: Basis, core: Core) -> Core:
         error_bound=core.error_bound,
         basis=basis,
         gram=core.gram,
+        raw_map=core.raw_map,
     )

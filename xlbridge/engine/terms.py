@@ -36,6 +36,14 @@ class ModelSpec:
     degree: int | None = None  # polynomial degree (kind == "polynomial")
     notes: tuple[str, ...] = field(default=())
 
+    def __post_init__(self) -> None:
+        # computed once: a fit reads them many times (per coefficient, per check); set past
+        # the frozen guard, outside the fields, so equality, repr and replace are unchanged
+        zero = (0,) * len(self.predictors)
+        every = ((zero,) if self.intercept else ()) + tuple(self.powers)
+        object.__setattr__(self, "_all_powers", every)
+        object.__setattr__(self, "_terms", tuple(term_label(p, self.predictors) for p in every))
+
     @property
     def k(self) -> int:
         return len(self.predictors)
@@ -43,12 +51,12 @@ class ModelSpec:
     @property
     def all_powers(self) -> tuple[Powers, ...]:
         """Exponent tuples of every column, intercept first when present."""
-        zero = (0,) * self.k
-        return ((zero,) if self.intercept else ()) + self.powers
+        return self._all_powers
 
     @property
     def terms(self) -> tuple[str, ...]:
-        return tuple(term_label(p, self.predictors) for p in self.all_powers)
+        """Term labels of every column, 'intercept' first when present."""
+        return self._terms
 
     @property
     def n_params(self) -> int:
