@@ -10,8 +10,6 @@ import codecs
 import contextlib
 import os
 import re
-import secrets
-import socket
 import stat
 import time
 import zipfile
@@ -354,7 +352,10 @@ _NAME_BYTES = 100  # of the output name kept in a temporary name (file names max
 
 def _host_tag() -> str:
     # Process ids mean something only on the machine that issued them; the tag tells whether
-    # a temporary file in a shared folder was written here.
+    # a temporary file in a shared folder was written here. (socket is imported here: only
+    # a run that writes a file needs it, and it costs the others ~5 ms of start-up.)
+    import socket
+
     return f"{zlib.crc32(socket.gethostname().encode('utf-8', 'replace')) & 0xFFFFFF:06x}"
 
 
@@ -418,7 +419,7 @@ def _new_temp(out: Path) -> Path:
     flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
     stem = f"{TEMP_PREFIX}{_host_tag()}-{os.getpid()}-"
     for _ in range(100):
-        tmp = out.with_name(f"{stem}{secrets.token_hex(4)}-{_short_name(out.name)}")
+        tmp = out.with_name(f"{stem}{os.urandom(4).hex()}-{_short_name(out.name)}")
         try:
             fd = os.open(tmp, flags, 0o666)
         except FileExistsError:

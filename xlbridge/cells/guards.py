@@ -75,6 +75,14 @@ def _near(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.abs(a - b) <= _RTOL * np.maximum(np.abs(a), np.abs(b))
 
 
+def _above(col: np.ndarray, keep: np.ndarray, above_n: np.ndarray
+           ) -> tuple[np.ndarray, np.ndarray]:
+    """Sum and mean of the kept values above each row of one column."""
+    sums = np.cumsum(col if keep.all() else np.where(keep, col, 0.0))
+    above_sum = np.concatenate([[0.0], sums[:-1]])
+    return above_sum, above_sum / np.maximum(above_n, 1)
+
+
 def find_totals(y: np.ndarray, x: np.ndarray, usable: np.ndarray) -> list[tuple[int, str]]:
     """(row index, "sum" or "mean") of each usable row whose y and every x equal the sum
     or the mean of the usable data rows above it: since the last total found (a subtotal)
@@ -90,19 +98,26 @@ def find_totals(y: np.ndarray, x: np.ndarray, usable: np.ndarray) -> list[tuple[
             block, keep = vals[lo:], data[lo:]
             counts = np.cumsum(keep)
             above_n = np.concatenate([[0], counts[:-1]])
-            sums = np.cumsum(np.where(keep[:, None], block, 0.0), axis=0)
-            above_sum = np.vstack([np.zeros((1, block.shape[1])), sums[:-1]])
-            above_mean = above_sum / np.maximum(above_n, 1)[:, None]
             yv = np.where(keep, block[:, 0], np.nan)
             spread = np.fmax.accumulate(yv) > np.fmin.accumulate(yv)
             varied = np.concatenate([[False], spread[:-1]])
-            as_sum, as_mean = _near(block, above_sum), _near(block, above_mean)
-            match = (above_n >= _MIN_ROWS) & varied & (as_sum | as_mean).all(axis=1)
+            # y first, column by column: the other columns are compared only in the rows
+            # where y matches (few), which keeps a long column's temporaries small
+            y_sum, y_mean = _above(block[:, 0], keep, above_n)
+            y_is_sum = _near(block[:, 0], y_sum)
+            match = (above_n >= _MIN_ROWS) & varied & (y_is_sum | _near(block[:, 0], y_mean))
             match[: start - lo] = False
+            for c in range(1, block.shape[1]):
+                if not match.any():
+                    break
+                rows = np.flatnonzero(match)
+                c_sum, c_mean = _above(block[:, c], keep, above_n)
+                v = block[rows, c]
+                match[rows] = _near(v, c_sum[rows]) | _near(v, c_mean[rows])
             if match.any():
                 j = int(np.argmax(match))
                 if best is None or lo + j < best[0]:
-                    best = (lo + j, "sum" if as_sum[j, 0] else "mean")
+                    best = (lo + j, "sum" if y_is_sum[j] else "mean")
         if best is None:
             break
         found.append((int(idx[best[0]]), best[1]))
@@ -153,8 +168,10 @@ def swapped_note(y: np.ndarray, x: np.ndarray) -> str:
     yv, xv = y[ok], x[ok]
     if len(yv) < 12:
         return ""
+    if not np.all(yv == np.round(yv)):  # before the sort of np.unique
+        return ""
     distinct = np.unique(yv)
-    if len(distinct) > 10 or not np.all(distinct == np.round(distinct)):
+    if len(distinct) > 10:
         return ""
     for j in range(xv.shape[1]):
         col = xv[:, j]
