@@ -62,14 +62,21 @@ def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int) -> list[np.ndarray
     mu = int(np.frexp(top)[1])  # top < 2^mu
     parts = []
     rest = hi
+    # written in place where the operand is our own temporary: for an n x p design each new
+    # array is fresh memory, whose page faults cost more than the arithmetic
     for k in (1, 2):
         # sigma in [2^(tau-1), 2^tau) with ulp(sigma) = 2^(mu - k bits): rest + sigma rounds
         # rest to that grid (|rest| <= 2^(tau - 2)) and subtracting sigma again is exact
         sigma = np.ldexp(0.75, mu - k * bits + 53)
-        q = (rest + sigma) - sigma
-        rest = rest - q  # exact: q is rest rounded to a coarser grid
+        q = rest + sigma
+        q -= sigma
+        if k == 1:
+            rest = rest - q  # exact: q is rest rounded to a coarser grid
+        else:
+            rest -= q
         parts.append(q)
-    parts.append(rest + lo)
+    rest += lo
+    parts.append(rest)
     parts.append(parts[0] + parts[1])
     return parts
 
@@ -93,8 +100,19 @@ def sliced_product(a: list[np.ndarray], b: list[np.ndarray]):
     bits_b + 53) of the whole."""
     a1, a2, ar, a12 = a
     b1, b2, br, b12 = b
-    rest = a2 @ b2 + a12 @ br + ar @ (b12 + br)
+    rest = a2 @ b2 + a12 @ br + ar @ b12 + ar @ br
     return _accumulate([a1 @ b1, a1 @ b2, a2 @ b1], rest)
+
+
+def sliced_gram(a: list[np.ndarray]):
+    """a' a for a sliced operand (see ``slices``) as a pair (hi, lo), as ``sliced_product``
+    of a' and a but with five products instead of seven: S2'S1 is the transpose of S1'S2
+    (both exact, so equal to the last bit) and R'S12 that of S12'R."""
+    a1, a2, ar, a12 = a
+    cross = a1.T @ a2
+    mixed = a12.T @ ar
+    rest = a2.T @ a2 + mixed + mixed.T + ar.T @ ar
+    return _accumulate([a1.T @ a1, cross, cross.T], rest)
 
 
 def design_pair(x: np.ndarray, centers: np.ndarray, scales: np.ndarray,
@@ -179,7 +197,8 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     if not np.all(np.isfinite(cmax)) or np.any(cmax == 0):
         return None
     d = np.ldexp(1.0, -np.frexp(cmax)[1])  # column j of T times d_j has max in [1/2, 1)
-    th, tl = th * d, tl * d
+    th *= d  # exact (powers of two), in place: no second n x p pair
+    tl *= d
     bits = slice_bits(max(n, p))
     t_s = slices(th, tl, bits)
     t_sT = [part.T for part in t_s]
@@ -188,7 +207,8 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     else:
         wh, wl = two_prod(w[:, None], th)
         wt_s = slices(wh, wl + w[:, None] * tl, bits)
-    g_hi, g_lo = sliced_product(t_sT, wt_s)  # G = D T'WT D
+    # G = D T'WT D
+    g_hi, g_lo = sliced_gram(t_s) if w is None else sliced_product(t_sT, wt_s)
     g_hi, g_lo = _mirror(g_hi), _mirror(g_lo)  # exactly symmetric, upper triangle kept
     x0 = inv0 / np.outer(d, d)  # (D T'WT D)^-1
     x0 = (x0 + x0.T) / 2
