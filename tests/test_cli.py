@@ -242,7 +242,7 @@ def test_every_command_has_help_with_an_example(capsys) -> None:
 def test_console_script_and_start_up_imports(book: Path) -> None:
     """A whole process, as users and the benchmark run it: output, exit code, and which
     modules were imported (none of the heavy libraries or xlbridge parts one fit does not
-    use: xlwings, pandas, scipy.stats/sparse/optimize, openpyxl, matplotlib, rich, the
+    use: xlwings, pandas, scipy.stats/special/sparse/optimize, openpyxl, matplotlib, rich, the
     grouped fits, degree scan, diagnostics, CER tables, runner, figures, report)."""
     code = (
         "import sys, io, contextlib\n"
@@ -252,7 +252,8 @@ def test_console_script_and_start_up_imports(book: Path) -> None:
         f"    rc = main(['fit', {str(book)!r}, '--y', {Y!r}, '--x', {X!r}, '--model', '2',"
         " '--format', 'json'])\n"
         "heavy = sorted(m for m in ('xlwings', 'pandas', 'scipy.stats', 'openpyxl',"
-        " 'matplotlib', 'rich', 'scipy.sparse', 'scipy.optimize', 'xlbridge.engine.groups',"
+        " 'matplotlib', 'rich', 'scipy.special', 'scipy.sparse', 'scipy.optimize',"
+        " 'xlbridge.engine.groups',"
         " 'xlbridge.engine.scan', 'xlbridge.engine.diagnostics', 'xlbridge.cells.models',"
         " 'xlbridge.cells.groups', 'xlbridge.cells.cer',"
         " 'xlbridge.runner', 'xlbridge.plots', 'xlbridge.report') if m in sys.modules)\n"

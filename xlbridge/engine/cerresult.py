@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .dist import t_ppf
 from .errors import ModelError, ModelErrorKind, check_level
 from .result import plain
 from .unitstats import UnitStats, relevant_range
@@ -68,9 +69,7 @@ class Spread:
     df: int
 
     def quantile(self, p: float) -> np.ndarray:
-        from scipy.special import stdtrit
-
-        q = self.loc + float(stdtrit(self.df, p)) * self.scale
+        q = self.loc + t_ppf(p, self.df) * self.scale
         return np.exp(q) if self.distribution == "log-t" else q
 
     def params(self, i: int) -> dict:

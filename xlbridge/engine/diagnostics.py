@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .dist import f_pvalue, t_pvalue
+from .dist import chi2_sf, f_pvalue, t_pvalue, t_quantile
 from .result import FitResult
 from .solve import monomials
 
@@ -98,7 +98,13 @@ def _influence(res: FitResult):
         s2_del = (sse - e * e / one_h) / dof if dof > 0 else np.full(n, np.nan)
         external = e / np.sqrt(s2_del * one_h)
         cooks = internal**2 * h / (p * one_h)
-        bonf = np.minimum(1.0, n * t_pvalue(external, dof)) if dof > 0 else np.full(n, np.nan)
+        bonf = np.full(n, np.nan)
+        if dof > 0:
+            # below the two-sided 1/n point of t, n * p >= 1 and the adjusted p is 1: only
+            # rows beyond it (less a margin far above the tail's error) need their tail
+            bonf[~np.isnan(external)] = 1.0
+            far = np.abs(external) > t_quantile(dof, 1.0 - 1.0 / n) * (1.0 - 1e-9)
+            bonf[far] = np.minimum(1.0, n * t_pvalue(external[far], dof))
     return internal, external, cooks, bonf
 
 
@@ -183,12 +189,6 @@ def _rank(design: np.ndarray) -> int:
     return int(np.linalg.matrix_rank(design[:, norms > 0] / norms[norms > 0]))
 
 
-def _chi2_sf(x: float, df: float) -> float:
-    import scipy.special as sp
-
-    return float(sp.chdtrc(df, x)) if df > 0 else math.nan
-
-
 def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], ...]:
     """(LM, p, df) of Breusch-Pagan (Koenker's studentized form, regressors = the model's
     columns) and White (regressors = the columns, their squares and cross products)."""
@@ -205,7 +205,7 @@ def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], 
     for design in (bp_design, white_design):
         lm = n * _aux_r2(e2, design)
         df = _rank(design) - 1
-        out.append((lm, _chi2_sf(lm, df), df))
+        out.append((lm, chi2_sf(lm, df), df))
     return tuple(out)
 
 
@@ -298,9 +298,9 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         out.append(Check("normality", math.nan, math.nan, "n/a",
                          "too few rows or residuals all zero"))
     elif n <= SHAPIRO_MAX_ROWS:
-        from scipy.stats import shapiro
+        from .swilk import shapiro_wilk
 
-        w, pv = shapiro(e)
+        w, pv = shapiro_wilk(e)
         out.append(Check("normality", float(w), float(pv), _p_verdict(pv),
                          f"Shapiro-Wilk W of the residuals{scale}; ok at p >= 0.05"))
     else:
@@ -309,7 +309,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
         skew = np.mean(d**3) / m2**1.5
         kurt = np.mean(d**4) / m2**2
         jb = n / 6.0 * (skew**2 + (kurt - 3.0) ** 2 / 4.0)
-        pv = _chi2_sf(jb, 2)
+        pv = chi2_sf(jb, 2)
         out.append(Check("normality", float(jb), pv, _p_verdict(pv),
                          f"Jarque-Bera (more than {SHAPIRO_MAX_ROWS} rows); skewness "
                          f"{skew:.3g}, kurtosis {kurt:.3g}; ok at p >= 0.05"))
