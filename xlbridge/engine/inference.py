@@ -123,7 +123,7 @@ def build(
     stats = FitStats(
         n_used=n, n_params=p, df_resid=df, sse=sse, sst=sst, r2=r2, adj_r2=adj, rmse=rmse,
         rmse_percent=spread_pct, f_stat=f, f_p_value=fp, aic=aic, bic=bic, press=press,
-        pred_r2=pred_r2, cond_number=core.cond, cond_number_raw=raw_condition(core, x, w),
+        pred_r2=pred_r2, cond_number=core.cond, cond_number_raw=raw_condition(core, x, w, v),
         max_vif=float(np.max(nonint)) if nonint else math.nan, top_term_p_value=top,
     )
 
@@ -175,11 +175,13 @@ def rmse_percent(rmse: float, ybar: float, remedy: Remedy) -> float:
     return 100.0 * rmse / ybar if ybar != 0 else math.nan
 
 
-def raw_condition(core: Core, x: np.ndarray, w: np.ndarray | None) -> float:
+def raw_condition(core: Core, x: np.ndarray, w: np.ndarray | None,
+                  v: np.ndarray | None = None) -> float:
     """2-norm condition number of the raw design sqrt(W) X (columns x^m, not centered or
     scaled), from the scaled basis: sqrt(W) X = (sqrt(W) T) V with V = raw_in_scaled, so its
     singular values are those of R V where R'R = T'WT (p x p work, not n x p)."""
-    v = core.basis.raw_in_scaled()
+    if v is None:  # ``build`` passes the one it formed for the VIFs
+        v = core.basis.raw_in_scaled()
     try:
         r = np.linalg.cholesky(core.gram).T
         sv = np.linalg.svd(r @ v, compute_uv=False)
@@ -273,8 +275,9 @@ def rescale(res: FitResult, y_scale: float, weights: np.ndarray | None,
     would underflow or overflow; then they stay in units of y_scale^2 (``FitResult.y_scale``,
     1 otherwise)."""
     sy, g = y_scale, w_ratio
-    coefs = tuple(replace(c, estimate=c.estimate * sy, std_error=c.std_error * sy,
-                          ci_lower=c.ci_lower * sy, ci_upper=c.ci_upper * sy)
+    # built directly (dataclasses.replace costs more than the arithmetic at p = 28)
+    coefs = tuple(Coefficient(c.term, c.estimate * sy, c.std_error * sy, c.t_ratio, c.p_value,
+                              c.ci_lower * sy, c.ci_upper * sy, c.vif, c.vif_centered)
                   for c in res.coefficients)
     st = res.stats
     ss = g * sy * sy
