@@ -14,11 +14,13 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from hypothesis import given, settings
+from hypothesis import strategies as st_h
 from scipy import stats as st
 from statsmodels.stats.anova import anova_lm
 
 from xlbridge.engine import checks, fit
-from xlbridge.engine.diagnostics import lack_of_fit
+from xlbridge.engine.diagnostics import distinct_rows, lack_of_fit
 
 NAME = "lack of fit (pure error)"
 
@@ -137,3 +139,20 @@ def test_not_available_without_repeats_or_spare_distinct_rows():
     c3 = _check(fit(1 + x3**2 + rng.normal(0, 0.1, 9), x3, 2))
     assert c3.verdict == "n/a" and "3 distinct x values for 3 coefficients" in c3.note
     assert lack_of_fit(fit(1 + x3**2 + rng.normal(0, 0.1, 9), x3, 2)) is None
+
+
+@settings(max_examples=150, derandomize=True)
+@given(st_h.integers(1, 4).flatmap(lambda k: st_h.lists(
+    st_h.lists(st_h.sampled_from([-2.0, -0.0, 0.0, 1.5, 3.0, 1e300]), min_size=k, max_size=k),
+    min_size=1, max_size=40)))
+def test_distinct_rows_partition_equals_numpy_unique(rows: list[list[float]]) -> None:
+    """Property: rows grouped by ``distinct_rows`` form the same partition as numpy's
+    ``np.unique(x, axis=0, return_inverse=True)`` (the reference), with -0.0 and 0.0 as one
+    value, as the fit's comparison of x values takes them."""
+    x = np.array(rows, dtype=float)
+    x[x == 0] = 0.0  # numpy's row view tells -0.0 from 0.0 apart; the values are equal
+    groups, m = distinct_rows(x)
+    _, inverse = np.unique(x, axis=0, return_inverse=True)
+    inverse = np.asarray(inverse).ravel()
+    assert m == int(inverse.max()) + 1
+    assert len(set(zip(groups.tolist(), inverse.tolist()))) == m  # a one-to-one relabelling

@@ -8,6 +8,7 @@ Data are invented (fixed seed). Run: python tests/benchmarks/bench_cli_read.py [
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 import tempfile
@@ -17,6 +18,10 @@ from pathlib import Path
 import numpy as np
 import openpyxl
 
+# An installed package runs from compiled .pyc files; with PYTHONDONTWRITEBYTECODE set (as
+# in some sandboxes) every child process would compile the checkout from source again.
+os.environ.pop("PYTHONDONTWRITEBYTECODE", None)
+
 ROWS = int(sys.argv[1]) if len(sys.argv) > 1 else 100_000
 REPEATS = 5
 TARGET = 3.0
@@ -24,6 +29,7 @@ TARGET = 3.0
 OPENPYXL_READ = """
 import sys
 import openpyxl
+
 wb = openpyxl.load_workbook(sys.argv[1], read_only=True, data_only=True)
 ws = wb["Site data"]
 cells = [row for row in ws.iter_rows(min_row=1, max_col=2, values_only=True)]

@@ -14,6 +14,7 @@ Run: python tests/benchmarks/bench_runner.py [rows ...]   (default 10000 100000 
 
 from __future__ import annotations
 
+import os
 import subprocess
 import sys
 import tempfile
@@ -21,6 +22,10 @@ import zipfile
 from pathlib import Path
 
 import numpy as np
+
+# An installed package runs from compiled .pyc files; with PYTHONDONTWRITEBYTECODE set (as
+# in some sandboxes) every child process would compile the checkout from source again.
+os.environ.pop("PYTHONDONTWRITEBYTECODE", None)
 
 SIZES = [int(a) for a in sys.argv[1:]] or [10_000, 100_000, 1_000_000]
 TARGET_TIME, TARGET_MEMORY = 3.0, 2.0
@@ -36,6 +41,7 @@ print(n)
 # Runs argv[1:] and prints "seconds peak_kib exit_code"; its own small size is the baseline.
 LAUNCHER = """
 import os, subprocess, sys, time
+
 t0 = time.perf_counter()
 proc = subprocess.Popen(sys.argv[1:], stdout=sys.stdout, stderr=sys.stderr)
 _, status, usage = os.wait4(proc.pid, 0)
