@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from fractions import Fraction
 
 import numpy as np
@@ -10,6 +11,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from xlbridge import ModelError, fit
+from xlbridge.engine.ddarith import dd_total
 from xlbridge.engine.exact import bareiss_solve, dyadic
 
 FAST = settings(max_examples=25, suppress_health_check=[HealthCheck.too_slow])
@@ -128,3 +130,22 @@ def test_numbers_too_large_to_square_get_a_message(big, degree):
         assert "rescale" in str(exc) or "distinct" in str(exc)
     else:
         assert np.all(np.isfinite(r.estimates))
+
+
+@settings(max_examples=120, derandomize=True)
+@given(st.lists(st.floats(min_value=-1e250, max_value=1e250, allow_nan=False), min_size=0,
+                max_size=300),
+       st.integers(0, 6))
+def test_double_double_total_is_the_correctly_rounded_sum(values, repeat):
+    """Property: ``dd_total`` (the unit statistics' sum of long columns) is within one unit
+    in the last place of ``math.fsum`` (Python's correctly rounded sum, the reference)
+    whenever the terms do not cancel by more than its stated bound; always within that bound
+    of the exact sum (``fractions.Fraction``)."""
+    a = np.array(values * (repeat + 1), dtype=float)
+    got, want = dd_total(a), math.fsum(a)
+    exact = sum((Fraction(v) for v in a.tolist()), Fraction(0))
+    n, u = max(len(a), 1), 2.0**-53
+    bound = (2 + math.log2(n)) * u * abs(float(exact)) + n * u * u * float(np.sum(np.abs(a)))
+    if float(np.sum(np.abs(a))) * n < 1e15 * abs(want):
+        assert abs(got - want) <= math.ulp(want)
+    assert abs(Fraction(got) - exact) <= Fraction(bound) + Fraction(u * abs(want))

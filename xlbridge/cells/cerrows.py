@@ -9,7 +9,7 @@ from typing import Any
 
 from ..engine import CerResult, FitResult
 from ..engine.cerresult import INTERVAL_SOURCES
-from ..engine.unitstats import UnitStats, fit_unit_stats, relevant_range
+from ..engine.unitstats import UnitStats, relevant_range
 from .statrows import interval_captions
 
 __all__ = ["CER_COEF_COLUMNS", "base_year_text", "cer_coef_rows", "cer_predict_rows",
@@ -84,7 +84,7 @@ def fit_unit_rows(res: FitResult) -> Rows:
     import numpy as np
 
     ranges = relevant_range(np.vstack([res.x_min, res.x_max]), res.spec.predictors)
-    return [["unit_space", "unit"]] + unit_rows(fit_unit_stats(res)) + range_rows(ranges)
+    return [["unit_space", "unit"]] + unit_rows(res.unit_stats) + range_rows(ranges)
 
 
 def cer_stats_rows(res: CerResult, base_year: int | None) -> tuple[Rows, list[str]]:

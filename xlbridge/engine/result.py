@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, fields
 from enum import Enum
+from functools import cached_property
 
 import numpy as np
 
@@ -12,7 +13,7 @@ from .dist import t_quantile
 from .errors import ModelError, ModelErrorKind
 from .solve import Basis
 from .terms import ModelSpec
-from .unitstats import fit_unit_stats, relevant_range
+from .unitstats import UnitStats, fit_unit_stats, relevant_range
 
 COEF_FIELDS = ("term", "estimate", "std_error", "t_ratio", "p_value", "ci_lower", "ci_upper",
                "vif", "vif_centered")
@@ -206,6 +207,11 @@ class FitResult:
     def terms(self) -> tuple[str, ...]:
         return self.spec.terms
 
+    @cached_property
+    def unit_stats(self) -> UnitStats:
+        """SEE, CV, R² in units, bias and SPE of this fit (computed once, on first use)."""
+        return fit_unit_stats(self)
+
     @property
     def model_text(self) -> str:
         """The model spec, with any remedy, e.g. 'degree 2 (log y, se hc3)'."""
@@ -321,7 +327,7 @@ class FitResult:
             "stats": self.stats.to_dict(),
         }
         out["stats"]["fit_space"] = "log" if self.remedy.log else "unit"
-        out["unit_stats"] = fit_unit_stats(self).to_dict()
+        out["unit_stats"] = self.unit_stats.to_dict()
         out["relevant_range"] = relevant_range(np.vstack([self.x_min, self.x_max]),
                                                self.spec.predictors)
         out["notes"] = [str(n) for n in self.notes]
