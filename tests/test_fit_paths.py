@@ -16,6 +16,7 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
+import xlbridge.engine.refine as refine_module
 import xlbridge.engine.solve as solve_module
 from xlbridge import fit
 
@@ -208,3 +209,19 @@ def test_small_products_run_on_one_blas_thread():
             assert blas_threads_now() == before
         assert blas_threads_now() == 1
     assert blas_threads_now() == before
+
+
+@pytest.mark.parametrize("weighted", [False, True])
+def test_refined_path_in_small_row_blocks_matches_exact_arithmetic(weighted, monkeypatch):
+    """The refinement's long sums go by row blocks; with blocks of 64 rows (7 blocks, the
+    last one short) a typical quadratic, weighted or not, still agrees with the exact
+    rational solution to >= 14 digits (reference: fractions)."""
+    monkeypatch.setattr(refine_module, "BLOCK", 64)
+    rng = np.random.default_rng(8)
+    x = rng.uniform(50, 5000, 420)
+    y = (120 + 0.05 * x - 2e-5 * x**2) * (1 + rng.normal(0, 0.03, 420))
+    w = rng.uniform(0.2, 5.0, 420) if weighted else None
+    res = fit(y, x, 2, weights=w)
+    assert res.method == "refined"
+    scores = _digits(res, _exact_reference(y, x, 2, w))
+    assert min(scores.values()) >= 14.0, scores

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .dist import chi2_sf, f_pvalue, t_pvalue, t_quantile
+from .refine import spans
 from .result import FitResult
 from .solve import monomials
 
@@ -91,13 +92,29 @@ def _influence(res: FitResult):
     h = res.leverage
     sse = float(e @ e)
     s2 = sse / (n - p)
+    # each formula's operations in their usual order, written in place: a handful of
+    # n-vectors instead of a temporary for every operation
     with np.errstate(divide="ignore", invalid="ignore"):
         one_h = 1.0 - h
-        internal = e / np.sqrt(s2 * one_h)
+        internal = np.multiply(s2, one_h)
+        np.sqrt(internal, out=internal)
+        np.divide(e, internal, out=internal)
         dof = n - p - 1
-        s2_del = (sse - e * e / one_h) / dof if dof > 0 else np.full(n, np.nan)
-        external = e / np.sqrt(s2_del * one_h)
-        cooks = internal**2 * h / (p * one_h)
+        if dof > 0:  # s2_del = (sse - e e / (1 - h)) / dof, then e / sqrt(s2_del (1 - h))
+            external = np.multiply(e, e)
+            external /= one_h
+            np.subtract(sse, external, out=external)
+            external /= dof
+        else:
+            external = np.full(n, np.nan)
+        external *= one_h
+        np.sqrt(external, out=external)
+        np.divide(e, external, out=external)
+        cooks = np.square(internal)  # internal^2 h / (p (1 - h))
+        cooks *= h
+        one_h *= p
+        cooks /= one_h
+        del one_h
         bonf = np.full(n, np.nan)
         if dof > 0:
             # below the two-sided 1/n point of t, n * p >= 1 and the adjusted p is 1: only
@@ -139,7 +156,9 @@ def row_diagnostics(res: FitResult) -> RowDiagnostics:
     internal, external, cooks, bonf = _influence(res)
     m = len(res.used)
 
-    def spread(v):
+    def spread(v, own=False):
+        if own and m == n:  # every row used: an array made here needs no copy
+            return v
         out = np.full(m, np.nan)
         out[res.used] = v
         return out
@@ -160,9 +179,9 @@ def row_diagnostics(res: FitResult) -> RowDiagnostics:
             f.append("influential")
         flags.append(", ".join(f))
         j += 1
-    return RowDiagnostics(spread(res.fitted), spread(res.residuals), spread(internal),
-                          spread(external), spread(res.leverage), spread(cooks), spread(bonf),
-                          tuple(flags))
+    return RowDiagnostics(spread(res.fitted), spread(res.residuals), spread(internal, True),
+                          spread(external, True), spread(res.leverage), spread(cooks, True),
+                          spread(bonf, True), tuple(flags))
 
 
 def _p_verdict(p: float) -> str:
@@ -171,40 +190,70 @@ def _p_verdict(p: float) -> str:
     return "ok" if p >= P_WATCH else ("watch" if p >= P_PROBLEM else "problem")
 
 
-def _aux_r2(target: np.ndarray, design: np.ndarray) -> float:
-    """Centered R^2 of ``target`` regressed on ``design`` (which holds a constant column)."""
-    norms = np.linalg.norm(design, axis=0)
-    keep = norms > 0
-    q, r = np.linalg.qr(design[:, keep] / norms[keep])
-    diag = np.abs(np.diag(r))
-    q = q[:, diag > 1e-10]
-    fitted = q @ (q.T @ target)
-    dev = target - target.mean()
-    sst = float(dev @ dev)
-    return 1.0 - float(np.sum((target - fitted) ** 2)) / sst if sst > 0 else math.nan
+def _aux_r2(r_aug: np.ndarray, n: int, sst: float) -> tuple[float, int]:
+    """(centered R^2, rank) of a centered target regressed on a design holding a constant
+    column, from the R factor of [design | target] (``_r_factor``) over n rows, sst the
+    target's sum of squares. Zero columns are left out, the rest scaled to unit length; a
+    column within a relative 1e-10 of the span of those before it adds nothing to the fit.
+    R^2 is the explained sum of squares over sst (the centered target's projections on the
+    orthonormal directions of the design), accurate in relative terms however small. The
+    rank is numpy.linalg.matrix_rank's (singular values above max(rows, columns) eps times
+    the largest) of the scaled design."""
+    q = r_aug.shape[1] - 1
+    if r_aug.shape[0] <= q:  # fewer rows than columns: zero rows change no projection
+        r_aug = np.concatenate([r_aug, np.zeros((q + 1 - r_aug.shape[0], q + 1))])
+    norms = np.linalg.norm(r_aug[:, :q], axis=0)  # the design's column norms (Q orthogonal)
+    keep = np.flatnonzero(norms > 0)
+    k = len(keep)
+    # the same rows times an orthogonal matrix: the R factor of [scaled kept columns | target]
+    r = np.linalg.qr(np.column_stack([r_aug[:, keep] / norms[keep], r_aug[:, q]]), mode="r")
+    diag = np.abs(np.diag(r)[:k])
+    coef = r[:k, k]  # the target on the orthonormal directions of the design
+    explained = float(np.sum(coef[diag > 1e-10] ** 2))
+    sv = np.linalg.svd(r[:k, :k], compute_uv=False)
+    rank = int(np.sum(sv > sv.max() * max(n, k) * np.finfo(float).eps)) if k else 0
+    return (explained / sst if sst > 0 else math.nan), rank
 
 
-def _rank(design: np.ndarray) -> int:
-    norms = np.linalg.norm(design, axis=0)
-    return int(np.linalg.matrix_rank(design[:, norms > 0] / norms[norms > 0]))
+def _r_factor(r_prev: np.ndarray | None, block: np.ndarray) -> np.ndarray:
+    """R of the rows of r_prev stacked on ``block`` (the R factor of a tall matrix by row
+    blocks, whose Q is never formed: the same R as one factorisation, up to row signs)."""
+    if r_prev is not None:
+        block = np.concatenate([r_prev, block])
+    return np.linalg.qr(block, mode="r")
 
 
 def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], ...]:
     """(LM, p, df) of Breusch-Pagan (Koenker's studentized form, regressors = the model's
-    columns) and White (regressors = the columns, their squares and cross products)."""
+    columns) and White (regressors = the columns, their squares and cross products).
+
+    The auxiliary designs are built by row blocks and reduced to their R factors at once,
+    so neither (n x p^2 for White) is ever held whole."""
     e2 = _whitened(res) ** 2
+    e2 -= e2.mean()  # centered: R^2 as explained over total, without cancellation
+    sst = float(e2 @ e2)
     n = len(e2)
     zero = (0,) * res.spec.k
     base = tuple(dict.fromkeys((zero,) + res.spec.all_powers))
-    t = (res.x - res.basis.centers) / res.basis.scales
-    bp_design = monomials(t, base)
     white_powers = tuple(dict.fromkeys(
         tuple(a + b for a, b in zip(p1, p2)) for i, p1 in enumerate(base) for p2 in base[i:]))
-    white_design = monomials(t, white_powers)
+    # the constant times each model column: the Breusch-Pagan columns are White columns
+    cols = ([white_powers.index(q) for q in base] + [len(white_powers)],
+            list(range(len(white_powers) + 1)))
+    centers, scales = res.basis.centers, res.basis.scales
+    r_facs: list[np.ndarray | None] = [None, None]
+    for s, e in spans(n):
+        t = (res.x[s:e] - centers) / scales
+        block = np.empty((e - s, len(white_powers) + 1), order="F")
+        block[:, :-1] = monomials(t, white_powers)
+        block[:, -1] = e2[s:e]
+        for i, c in enumerate(cols):
+            r_facs[i] = _r_factor(r_facs[i], block[:, c])
     out = []
-    for design in (bp_design, white_design):
-        lm = n * _aux_r2(e2, design)
-        df = _rank(design) - 1
+    for r_aug in r_facs:
+        r2, rank = _aux_r2(r_aug, n, sst)
+        lm = n * r2
+        df = rank - 1
         out.append((lm, chi2_sf(lm, df), df))
     return tuple(out)
 
@@ -269,7 +318,9 @@ def lack_of_fit(res: FitResult) -> LackOfFit | None:
 
 
 def durbin_watson(e: np.ndarray) -> float:
-    return float(np.sum(np.diff(e) ** 2) / np.sum(e * e)) if np.any(e) else math.nan
+    if not np.any(e):
+        return math.nan
+    return float(np.sum(np.diff(e) ** 2) / np.sum(e * e))
 
 
 def checks(res: FitResult) -> tuple[Check, ...]:
@@ -371,6 +422,7 @@ def checks(res: FitResult) -> tuple[Check, ...]:
                          f"largest at row {rows[i]}; {above4} rows above 4/n = "
                          f"{cooks_cutoff(n):.3g}, "
                          f"{above1} above 1 (watch above 0.5)", int(rows[i])))
+    del internal, external, cooks, bonf  # n-vectors no check below needs
 
     vifs = [c.vif for c in res.coefficients if c.term != "intercept"]
     vifc = [c.vif_centered for c in res.coefficients if c.term != "intercept"]

@@ -50,12 +50,21 @@ def slice_bits(m: int) -> int:
     return max(1, (52 - int(m).bit_length()) // 2)
 
 
-def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int) -> list[np.ndarray]:
+def top_of(a: np.ndarray) -> float:
+    """max|a| (0 for an empty array), without an |a| temporary."""
+    return float(max(np.max(a), -np.min(a))) if np.size(a) else 0.0
+
+
+def slices(hi: np.ndarray, lo: np.ndarray | float, bits: int,
+           top: float | None = None) -> list[np.ndarray]:
     """[S1, S2, R, S1 + S2] with hi + lo == S1 + S2 + R up to the rounding of R (below
     2^-(2 bits) of max|hi|, so R's own rounding is under 2^-(2 bits + 53) of it). S1 and S2
     are integer multiples of 2^(mu - bits) and 2^(mu - 2 bits) with |S_k| <= 2^mu, mu from
-    max|hi|; their sum (kept for reuse) is exact."""
-    top = float(max(np.max(hi), -np.min(hi))) if np.size(hi) else 0.0
+    max|hi|; their sum (kept for reuse) is exact. ``top`` (max|hi| of a whole array of
+    which hi is a block of rows) puts every block on the grid of the whole: the slices of a
+    block are then exactly the rows of the whole array's slices."""
+    if top is None:
+        top = top_of(hi)
     if top == 0.0:
         zero = np.zeros_like(hi)
         return [zero, zero, zero + lo, zero]
@@ -93,33 +102,96 @@ def _accumulate(exact: list[np.ndarray], rest: np.ndarray):
     return h, e - (h - s)
 
 
+def product_terms(a: list[np.ndarray], b: list[np.ndarray]):
+    """The terms of ``sliced_product``: ([S1 @ S1, S1 @ S2, S2 @ S1], rest), the first three
+    exact, the rest (S2 @ S2 and the remainder terms) plain double."""
+    a1, a2, ar, a12 = a
+    b1, b2, br, b12 = b
+    rest = a2 @ b2 + a12 @ br + ar @ b12 + ar @ br
+    return [a1 @ b1, a1 @ b2, a2 @ b1], rest
+
+
 def sliced_product(a: list[np.ndarray], b: list[np.ndarray]):
     """a @ b for sliced operands (see ``slices``) as a pair (hi, lo): S1 @ S1, S1 @ S2 and
     S2 @ S1 are exact and summed without error; S2 @ S2 (below 2^-(bits_a + bits_b) of the
     whole) and the remainder terms are plain double, their rounding below 2^-(bits_a +
     bits_b + 53) of the whole."""
+    return _accumulate(*product_terms(a, b))
+
+
+def gram_terms(a: list[np.ndarray]):
+    """The terms of ``sliced_gram``, as ``product_terms`` gives them."""
     a1, a2, ar, a12 = a
-    b1, b2, br, b12 = b
-    rest = a2 @ b2 + a12 @ br + ar @ b12 + ar @ br
-    return _accumulate([a1 @ b1, a1 @ b2, a2 @ b1], rest)
+    cross = a1.T @ a2
+    mixed = a12.T @ ar
+    rest = a2.T @ a2 + mixed + mixed.T + ar.T @ ar
+    return [a1.T @ a1, cross, cross.T], rest
 
 
 def sliced_gram(a: list[np.ndarray]):
     """a' a for a sliced operand (see ``slices``) as a pair (hi, lo), as ``sliced_product``
     of a' and a but with five products instead of seven: S2'S1 is the transpose of S1'S2
     (both exact, so equal to the last bit) and R'S12 that of S12'R."""
-    a1, a2, ar, a12 = a
-    cross = a1.T @ a2
-    mixed = a12.T @ ar
-    rest = a2.T @ a2 + mixed + mixed.T + ar.T @ ar
-    return _accumulate([a1.T @ a1, cross, cross.T], rest)
+    return _accumulate(*gram_terms(a))
+
+
+#: Rows per block of the long sums over the design and the residuals: the slices of a block
+#: (4 x BLOCK x p doubles) and its temporaries replace arrays the size of the design, and
+#: at 8,192 rows the per-block cost of the BLAS calls is negligible beside the arithmetic.
+#: Blocks change no exact term: the slice width comes from the whole length m (2 bits +
+#: log2 m <= 52, ``slice_bits``), so any partial sum of the m products of two slices, a
+#: block's or a sum of blocks', is an integer multiple of the grid below 2^53 of it, and
+#: adding the blocks' exact results in plain double is exact in any order. The plain-double
+#: rest is rounded once per block and once per block addition: at most (BLOCK + m / BLOCK)
+#: eps of its terms, within the m eps its bound allows a single long sum.
+BLOCK = 8_192
+
+
+def spans(n: int) -> list[tuple[int, int]]:
+    """(start, stop) of the row blocks of n rows."""
+    return [(s, min(s + BLOCK, n)) for s in range(0, n, BLOCK)]
+
+
+class BlockSums:
+    """Block results of ``product_terms`` / ``gram_terms`` added up: the exact terms stay
+    exact (see BLOCK), the rest in plain double; ``pair()`` as ``sliced_product`` gives it."""
+
+    def __init__(self) -> None:
+        self.exact: list[np.ndarray] | None = None
+        self.rest: np.ndarray | None = None
+
+    def add(self, terms) -> None:
+        exact, rest = terms
+        if self.exact is None:  # the first block as it is: one block is the whole product
+            self.exact, self.rest = exact, rest
+            return
+        self.exact = [a + b for a, b in zip(self.exact, exact)]
+        self.rest = self.rest + rest
+
+    def pair(self):
+        return _accumulate(self.exact, self.rest)
+
+
+def block_top(n: int, block) -> float:
+    """max|block(s, e)| over the row blocks of n rows (NaN if any is NaN)."""
+    return float(np.max([top_of(block(s, e)) for s, e in spans(n)])) if n else 0.0
 
 
 def design_pair(x: np.ndarray, centers: np.ndarray, scales: np.ndarray,
                 powers: tuple[tuple[int, ...], ...]) -> tuple[np.ndarray, np.ndarray]:
     """The scaled monomial design as a pair (hi, lo) of n x p arrays, each column correct
     to about 2^-104 relative (x - c by an error-free sum, exact power-of-two scaling, one
-    double-double product per column)."""
+    double-double product per column), built by row blocks (row by row arithmetic: the
+    blocks only bound the temporaries)."""
+    n = x.shape[0]
+    hi = np.empty((n, len(powers)), order="F")
+    lo = np.empty((n, len(powers)), order="F")
+    for s, e in spans(n):
+        hi[s:e], lo[s:e] = _design_rows(x[s:e], centers, scales, powers)
+    return hi, lo
+
+
+def _design_rows(x, centers, scales, powers):
     n, k = x.shape
     th, tl = [], []
     for j in range(k):
@@ -140,7 +212,7 @@ def design_pair(x: np.ndarray, centers: np.ndarray, scales: np.ndarray,
                 hi[:, i], lo[:, i] = th[j], tl[j]
             else:
                 if parent not in done:  # a parent outside the model: build it on the side
-                    ph, pl = design_pair(x, centers, scales, (parent,))
+                    ph, pl = _design_rows(x, centers, scales, (parent,))
                     ph, pl = ph[:, 0], pl[:, 0]
                 else:
                     ph, pl = hi[:, done[parent]], lo[:, done[parent]]
@@ -192,7 +264,7 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     p = len(powers)
     th, tl = design_pair(x, centers, scales, powers)
     # balance columns by powers of two (exact) so that norms below are on a unit scale
-    cmax = np.max(np.abs(th), axis=0)
+    cmax = np.maximum(np.max(th, axis=0), -np.min(th, axis=0))
     # x, y and w are finite (checked by fit); a design too large for double shows here
     if not np.all(np.isfinite(cmax)) or np.any(cmax == 0):
         return None
@@ -200,15 +272,31 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     th *= d  # exact (powers of two), in place: no second n x p pair
     tl *= d
     bits = slice_bits(max(n, p))
-    t_s = slices(th, tl, bits)
-    t_sT = [part.T for part in t_s]
-    if w is None:
-        wt_s = t_s
-    else:
-        wh, wl = two_prod(w[:, None], th)
-        wt_s = slices(wh, wl + w[:, None] * tl, bits)
-    # G = D T'WT D
-    g_hi, g_lo = sliced_gram(t_s) if w is None else sliced_product(t_sT, wt_s)
+    # the design's slices are made block by block on the grid of the whole design (see
+    # BLOCK): never more than a block of them at once
+    t_top = top_of(th)
+
+    def t_slices(s, e):
+        return slices(th[s:e], tl[s:e], bits, t_top)
+
+    # one pass for G = D T'WT D and the residual r = y - T b0 (b0 on the balanced columns)
+    bits_b = max(1, 52 - int(p).bit_length() - bits)
+    b_hi, b_lo = b0 / d, np.zeros(p)
+    b_s = slices(b_hi, b_lo, bits_b)
+    r_hi, r_lo = np.empty(n), np.empty(n)
+    gram = BlockSums()
+    wt_top = None if w is None else block_top(n, lambda s, e: w[s:e, None] * th[s:e])
+    for s, e in spans(n):
+        t_s = t_slices(s, e)
+        r_hi[s:e], r_lo[s:e] = _residual(y[s:e], t_s, b_s)
+        if w is None:
+            gram.add(gram_terms(t_s))
+        else:
+            wb = w[s:e, None]
+            wh, wl = two_prod(wb, th[s:e])
+            wl += wb * tl[s:e]
+            gram.add(product_terms([part.T for part in t_s], slices(wh, wl, bits, wt_top)))
+    g_hi, g_lo = gram.pair()
     g_hi, g_lo = _mirror(g_hi), _mirror(g_lo)  # exactly symmetric, upper triangle kept
     x0 = inv0 / np.outer(d, d)  # (D T'WT D)^-1
     x0 = (x0 + x0.T) / 2
@@ -230,11 +318,8 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
     err_inv = (norm_x * rho * rho / (1 - rho) + 4 * EPS * float(np.max(np.abs(corr)))
                + 2 * norm_x * norm_x * g_err)  # any entry, balanced columns
 
-    b_hi, b_lo = b0 / d, np.zeros(p)  # coefficients on the balanced columns
-    bits_b = max(1, 52 - int(p).bit_length() - bits)
     bits_u = max(1, 52 - int(n).bit_length() - bits)
     steps, tail = 0, np.inf
-    r_hi, r_lo = _residual(y, t_s, b_hi, b_lo, bits_b)
     updated = 0.0  # error added to each residual by the cheap updates below
     while True:
         # the error left after a step is at most rho / (1 - rho) times that step (the step
@@ -242,12 +327,18 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
         # bit of the coefficients, when the step stalls, or after MAX_STEPS
         if steps >= MAX_STEPS or tail <= 2.0**-20 * EPS * float(np.max(np.abs(b_hi))):
             break
-        if w is None:
-            u_hi, u_lo = r_hi, r_lo
-        else:
-            u_hi, u_lo = two_prod(w, r_hi)
-            u_lo = u_lo + w * r_lo
-        gh, gl = sliced_product(t_sT, slices(u_hi, u_lo, bits_u))
+        u_top = top_of(r_hi) if w is None else block_top(n, lambda s, e: w[s:e] * r_hi[s:e])
+        step = BlockSums()
+        for s, e in spans(n):
+            if w is None:
+                u_hi, u_lo = r_hi[s:e], r_lo[s:e]
+            else:
+                wb = w[s:e]
+                u_hi, u_lo = two_prod(wb, r_hi[s:e])
+                u_lo += wb * r_lo[s:e]
+            step.add(product_terms([part.T for part in t_slices(s, e)],
+                                   slices(u_hi, u_lo, bits_u, u_top)))
+        gh, gl = step.pair()
         delta = x0 @ (gh + gl)
         size = float(np.max(np.abs(delta)))
         if not np.isfinite(size):
@@ -256,21 +347,24 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
         steps += 1
         # r - T delta in plain double: the step is tiny beside b, so its rounding (at most
         # (p + 2) eps sum|delta| per row, |T| <= 1 on balanced columns) is far below r's
-        r_hi, r_lo = dd_add(r_hi, r_lo, -(th @ delta + tl @ delta), 0.0)
+        for s, e in spans(n):
+            r_hi[s:e], r_lo[s:e] = dd_add(r_hi[s:e], r_lo[s:e],
+                                          -(th[s:e] @ delta + tl[s:e] @ delta), 0.0)
         updated += (p + 2) * EPS * float(np.sum(np.abs(delta)))
         new_tail = rho / (1 - rho) * size
         stalled = new_tail >= tail
         tail = new_tail
         if stalled:
             break
+    th = tl = None  # the design pair is not needed below: free it
     # the fixed point's own error: the residual is right to about 8 eps 2^-(2 bits) of the
     # terms of y - T b, and g = T'W r to the same relative to its terms; X0 carries that
     # into b (balanced columns: |T| <= 1, so ||T_j|| <= sqrt(n))
-    row = float(np.max(np.abs(y))) + float(np.sum(np.abs(b_hi)))
+    row = top_of(y) + float(np.sum(np.abs(b_hi)))
     err_r = 8 * EPS * 2.0 ** (-2 * min(bits, bits_b)) * row + updated  # per row
     wmax = 1.0 if w is None else float(np.max(w))
-    fixed = norm_x * n * wmax * (err_r + 8 * EPS * 2.0 ** (-2 * min(bits, bits_u)) * float(
-        np.max(np.abs(r_hi))))
+    fixed = norm_x * n * wmax * (err_r + 8 * EPS * 2.0 ** (-2 * min(bits, bits_u)) * top_of(
+        r_hi))
     err_b = np.full(p, tail + fixed) * d  # back on the scaled (unbalanced) columns
     sse = weighted_sum_squares(r_hi, r_lo, w)
     dd2 = np.outer(d, d)
@@ -278,9 +372,9 @@ def _refine(x, y, w, centers, scales, powers, b0, inv0):
                    err_b, err_inv * dd2, steps)
 
 
-def _residual(y, t_s, b_hi, b_lo, bits_b):
-    """y - T b as a pair, with T b from exact slice products."""
-    ph, pl = sliced_product(t_s, slices(b_hi, b_lo, bits_b))
+def _residual(y, t_s, b_s):
+    """y - T b as a pair, with T b from exact slice products (b sliced in ``b_s``)."""
+    ph, pl = sliced_product(t_s, b_s)
     s, e = two_sum(y, -ph)
     e = e - pl
     h = s + e
@@ -340,30 +434,58 @@ def map_pair(m_hi: np.ndarray, m_lo: np.ndarray, v_hi: np.ndarray, v_lo) -> tupl
 
 
 def accurate_sum(hi: np.ndarray, lo: np.ndarray | float = 0.0) -> float:
-    """sum(hi + lo) to a few units in the last place: hi is cut into two slices whose sums
-    are exact (n terms of at most 52 - log2 n bits on a common grid); the leftover, below
-    2^-2(52 - log2 n) of max|hi|, and lo are summed in plain double."""
-    n = int(np.size(hi))
+    """sum(hi + lo) of a vector hi to a few units in the last place: hi is cut into two
+    slices whose sums are exact (n terms of at most 52 - log2 n bits on a common grid); the
+    leftover, below 2^-2(52 - log2 n) of max|hi|, and lo are summed in plain double."""
+    return _sum_blocks(int(np.size(hi)), lambda s, e: (
+        hi[s:e], lo[s:e] if np.ndim(lo) else lo))
+
+
+def _sum_blocks(n: int, pair, top: float | None = None) -> float:
+    """``accurate_sum`` of a vector given by row blocks, pair(s, e) = (hi, lo) of rows s:e,
+    on the grid of the whole (``top`` = max|hi|, found by a first pass if not given): each
+    block's slice sums are exact and so is their total (see BLOCK)."""
     if n == 0:
         return 0.0
-    s1, s2, rest, _ = slices(hi, lo, max(1, 52 - n.bit_length()))
-    h, e = two_sum(float(np.sum(s1)), float(np.sum(s2)))
-    return float(h + (e + float(np.sum(rest))))
+    bits = max(1, 52 - n.bit_length())
+    parts = spans(n)
+    if top is None and len(parts) > 1:
+        top = block_top(n, lambda s, e: pair(s, e)[0])
+    sums = None
+    for s, e in parts:
+        s1, s2, rest, _ = slices(*pair(s, e), bits, top)
+        block = [float(np.sum(s1)), float(np.sum(s2)), float(np.sum(rest))]
+        sums = block if sums is None else [a + b for a, b in zip(sums, block)]
+    h, e = two_sum(sums[0], sums[1])
+    return float(h + (e + sums[2]))
 
 
-def weighted_sum_squares(h: np.ndarray, lo: np.ndarray, w: np.ndarray | None) -> float:
-    """sum(w (h + lo)^2) to a few units in the last place (squares as exact products)."""
+def _squares(h, lo, w):
+    """(w (h + lo)^2) as an unnormalised pair (squares as exact products)."""
     if w is None:
         hh, hl = split(h)
         sq = h * h
         err = ((hh * hh - sq) + 2 * hh * hl) + hl * hl  # two_prod(h, h), one split
-        err = err + 2 * h * lo
+        err += 2 * h * lo
     else:
         wh, wl = two_prod(w, h)
-        wl = wl + w * lo
+        wl += w * lo
         sq, err = two_prod(wh, h)
-        err = err + (wh * lo + wl * h)
-    return accurate_sum(sq, err)
+        err += wh * lo + wl * h
+    return sq, err
+
+
+def weighted_sum_squares(h: np.ndarray, lo: np.ndarray | float,
+                         w: np.ndarray | None) -> float:
+    """sum(w (h + lo)^2) to a few units in the last place (squares as exact products),
+    by row blocks."""
+    def pair(s, e):
+        return _squares(h[s:e], lo[s:e] if np.ndim(lo) else lo, None if w is None else w[s:e])
+
+    # without weights the largest square is the square of the largest |h| (rounding is
+    # monotone), which spares the first pass
+    top = top_of(h) ** 2 if w is None and len(h) > BLOCK else None
+    return _sum_blocks(len(h), pair, top)
 
 
 def total_sum_squares(y: np.ndarray, w: np.ndarray | None, centered: bool) -> float:
@@ -371,14 +493,24 @@ def total_sum_squares(y: np.ndarray, w: np.ndarray | None, centered: bool) -> fl
     a rounded double; y - m is exact as a pair, and sum(w (y - m)^2) exceeds the wanted sum
     by W (ybar - m)^2, W = sum(w), which is subtracted (ybar - m from an accurate sum)."""
     if not centered:
-        return weighted_sum_squares(y, np.zeros_like(y), w)
+        return weighted_sum_squares(y, 0.0, w)
     m = float(np.average(y, weights=w))
-    dh, dl = two_sum(y, -m)
-    total = weighted_sum_squares(dh, dl, w)
-    # ybar - m = dev / W is tiny (m is the rounded mean), so plain sums give the correction
-    # to a relative error of about eps log2 n, far below SST's last place
-    if w is None:
-        big_w, dev = float(len(y)), float(np.sum(dh) + np.sum(dl))
-    else:
-        big_w, dev = float(np.sum(w)), float(np.sum(w * dh) + np.sum(w * dl))
+
+    def pair(s, e):
+        dh, dl = two_sum(y[s:e], -m)
+        return dh, dl, _squares(dh, dl, None if w is None else w[s:e])
+
+    # first pass: the grid of the squares, and ybar - m = dev / W, which is tiny (m is the
+    # rounded mean), so plain sums give the correction to a relative error of about
+    # eps log2 n, far below SST's last place
+    dev, tops = 0.0, []
+    for s, e in spans(len(y)):
+        dh, dl, (sq, _) = pair(s, e)
+        if w is None:
+            dev += float(np.sum(dh) + np.sum(dl))
+        else:
+            dev += float(np.sum(w[s:e] * dh) + np.sum(w[s:e] * dl))
+        tops.append(top_of(sq))
+    total = _sum_blocks(len(y), lambda s, e: pair(s, e)[2], float(np.max(tops)))
+    big_w = float(len(y)) if w is None else float(np.sum(w))
     return total - dev * dev / big_w
