@@ -221,6 +221,34 @@ def test_values_agree_with_openpyxl_as_independent_reader(tmp_path: Path, rows) 
             assert v == t and type(v) is type(t)
 
 
+
+@pytest.mark.parametrize("top, left", [(1, 1), (3, 3), (1, 4), (6, 1)])
+def test_sheet_away_from_a1_and_longer_than_one_read_step(tmp_path: Path, top: int,
+                                                          left: int) -> None:
+    """The reader turns rows into columns a few thousand at a time (book.xlsx); blank rows
+    and columns before the first cell stay in place. Reference: openpyxl reading the file."""
+    path = tmp_path / "far.xlsx"
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = "S"
+    n = 9000  # more than two steps of rows
+    for i in range(n):
+        ws.cell(top + i, left, i * 0.5)
+        if i % 7 == 0:
+            ws.cell(top + i, left + 1, f"t{i}")
+    ws.cell(top + n + 2, left + 2, True)
+    wb.save(path)
+    last_row, last_col = top + n + 2, left + 2
+    book = open_book(path)
+    assert book.used_extent("S") == (last_row, last_col)
+    ours = book.read_area(Area("S", 1, 1, last_row + 1, last_col + 1))
+    theirs = openpyxl.load_workbook(path, data_only=True)["S"]
+    for i, row in enumerate(ours):
+        assert row == [theirs.cell(i + 1, j + 1).value for j in range(last_col + 1)]
+    whole = book.resolve("S!$A:$A" if left == 1 else f"S!{col_letters(left)}:{col_letters(left)}")
+    assert whole.r2 == top + n - 1
+
+
 # --- reference text (pure) ------------------------------------------------------------------
 
 _sheet_names = st.text(alphabet="ab xyz'!1_-.", min_size=1, max_size=10).filter(

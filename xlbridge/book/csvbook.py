@@ -105,6 +105,6 @@ class CsvBook(Book):
         self._grid = grid
 
     def load_sheet(self, name: str, last_col: int | None = None) -> SheetData:
-        return SheetData(name, self._grid, converted=True)
+        return SheetData.from_rows(name, self._grid, converted=True)
 
 

@@ -22,7 +22,10 @@ from xlbridge.book.safety import BookError
 
 __all__ = ["SheetScan", "cells_up_to_column", "far_cells", "scan_sheet", "scan_sheet_bytes"]
 
-_CHUNK = 1 << 22  # bytes of XML inflated per step; pieces end at a row end
+# Bytes of XML inflated per step; pieces end at a row end. Small, because the pass holds a
+# few copies of a chunk at once (4 MiB chunks cost 24 MiB of peak memory, 256 KiB chunks
+# 2 MiB, for the same time).
+_CHUNK = 1 << 18
 
 _P = rb"(?:[A-Za-z_][\w.-]*:)?"  # optional namespace prefix
 _ERR_CELL = re.compile(rb"<" + _P + rb"c\s[^>]*?\bt\s*=\s*[\"']e[\"'][^>]*>")

@@ -19,7 +19,7 @@ from xlbridge.book.refs import MAX_COL, MAX_ROW, Area, NameRef, RefError, TableR
 from xlbridge.book.safety import BookError
 from xlbridge.book.values import EPOCH
 
-__all__ = ["Book", "SheetData", "Structure", "TableInfo", "cell_value",
+__all__ = ["Book", "SheetData", "Structure", "TableInfo", "cell_value", "convert_column",
            "missing_value_message", "xlwings_shape"]
 
 
@@ -68,24 +68,48 @@ class TableInfo:
     totals_rows: int = 0
 
 
+def convert_column(col: list[Any]) -> list[Any]:
+    """A column as python-calamine (or openpyxl) gives it -> the raw values xlwings passes
+    (the list itself when it holds numbers only)."""
+    kinds = set(map(type, col))
+    if kinds <= {float}:
+        return col
+    if kinds <= {float, str}:  # numbers and text: only "" (a blank) changes
+        return [None if v == "" else v for v in col] if "" in col else col
+    conv = cell_value
+    return [v if v.__class__ is float else conv(v) for v in col]
+
+
 @dataclass
 class SheetData:
+    """A sheet's values held column by column (a list per column costs 8 bytes a cell; a
+    list per row added about 90 bytes a row)."""
+
     name: str
-    grid: list[list[Any]]  # raw calamine rows from A1, or converted CSV rows
-    converted: bool = False
+    #: column j + 1 from row 1, as xlwings passes the values (None for a blank); every
+    #: column holds ``n_rows`` values
+    columns: list[list[Any]]
+    n_rows: int
     errors: dict[tuple[int, int], str] = field(default_factory=dict)
     no_value: set[tuple[int, int]] = field(default_factory=set)
-    #: None when the grid holds the whole sheet; else the grid holds only columns 1 to this
-    #: (a sheet too large to read whole is read as far as the references need).
+    #: None when the columns hold the whole sheet; else only columns 1 to this (a sheet too
+    #: large to read whole is read as far as the references need).
     cols_read: int | None = None
 
     @property
-    def n_rows(self) -> int:
-        return len(self.grid)
-
-    @property
     def n_cols(self) -> int:
-        return max((len(r) for r in self.grid), default=0)
+        return len(self.columns)
+
+    @classmethod
+    def from_rows(cls, name: str, rows: list[list[Any]], *, converted: bool = False,
+                  cols_read: int | None = None) -> SheetData:
+        """From rows as a reader gives them (ragged rows are padded with blanks);
+        ``converted``: the values are already those xlwings passes."""
+        width = max(map(len, rows), default=0)
+        columns = [[row[c] if c < len(row) else None for row in rows] for c in range(width)]
+        if not converted:
+            columns = [convert_column(col) for col in columns]
+        return cls(name, columns, len(rows), cols_read=cols_read)
 
 
 @dataclass
@@ -199,20 +223,23 @@ class Book:
         whole_columns = area.whole_columns and area.r2 == MAX_ROW
         sh = self._sheet(area.sheet or self.default_sheet, area.c2 if whole_columns else None)
         if whole_columns:
+            # the last row holding a value, an error or a formula without a saved value
+            # in any of the columns (within the rows read)
+            n = min(sh.n_rows, MAX_ROW)
             last = 0
-            for i in range(min(sh.n_rows, MAX_ROW), 0, -1):
-                row = sh.grid[i - 1]
-                if any(
-                    self._value(sh, i, c) is not None
-                    for c in range(area.c1, min(area.c2, len(row)) + 1)
-                ) or any((i, c) in sh.no_value for c in range(area.c1, area.c2 + 1)):
-                    last = i
-                    break
+            for c in range(area.c1, min(area.c2, sh.n_cols) + 1):
+                col = sh.columns[c - 1]
+                i = n
+                while i > last and col[i - 1] is None:
+                    i -= 1
+                last = max(last, i)
+            marked = [r for (r, c) in (*sh.errors, *sh.no_value)
+                      if area.c1 <= c <= area.c2 and last < r <= n]
+            last = max([last, *marked])
             return Area(area.sheet, 1, area.c1, max(last, 1), area.c2, whole_columns=True)
         last = 0
         for r in range(area.r1, min(area.r2, sh.n_rows) + 1):
-            row = sh.grid[r - 1]
-            for c in range(min(len(row), MAX_COL), 0, -1):
+            for c in range(min(sh.n_cols, MAX_COL), 0, -1):
                 if self._value(sh, r, c) is not None:
                     last = max(last, c)
                     break
@@ -307,28 +334,19 @@ class Book:
     def _value(self, sh: SheetData, r: int, c: int) -> Any:
         if sh.errors and (r, c) in sh.errors:
             return sh.errors[(r, c)]
-        if r > len(sh.grid):
+        if r > sh.n_rows or c > sh.n_cols:
             return None
-        row = sh.grid[r - 1]
-        if c > len(row):
-            return None
-        v = row[c - 1]
-        return v if sh.converted else cell_value(v)
+        return sh.columns[c - 1][r - 1]
 
     def read_columns(self, area: Area) -> list[list[Any]]:
         """Raw values of a resolved area, column by column (blanks beyond the data: None)."""
         sh = self._sheet(area.sheet or self.default_sheet, area.c2)
-        rows = sh.grid[area.r1 - 1 : area.r2]
-        pad = area.n_rows - len(rows)
-        conv = cell_value
+        r1, r2 = area.r1 - 1, min(area.r2, sh.n_rows)
         cols: list[list[Any]] = []
         for c in range(area.c1 - 1, area.c2):
-            # calamine rows are all as wide as the sheet; CSV rows may be ragged.
-            col = [row[c] if c < len(row) else None for row in rows]
-            if not sh.converted:
-                col = [v if v.__class__ is float else conv(v) for v in col]
-            if pad > 0:
-                col.extend([None] * pad)
+            col = sh.columns[c][r1:r2] if c < sh.n_cols else []
+            if len(col) < area.n_rows:
+                col.extend([None] * (area.n_rows - len(col)))
             cols.append(col)
         if sh.errors:
             for (r, c), err in sh.errors.items():

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import io
 import zipfile
+from itertools import islice
 from pathlib import Path, PurePosixPath
 from typing import Any
 
@@ -25,7 +26,7 @@ from xlbridge.book.sheetscan import (
     scan_sheet_bytes,
 )
 from xlbridge.book.values import MAX_NAME_CHARS
-from xlbridge.book.workbook import Book, SheetData, Structure, TableInfo
+from xlbridge.book.workbook import Book, SheetData, Structure, TableInfo, convert_column
 
 __all__ = ["XlsxBook", "fast_reader", "part_relations", "read_structure", "workbook_part"]
 
@@ -58,18 +59,67 @@ def _worksheet_names(values: Any) -> list[str]:
     return [ws.title for ws in values.worksheets]
 
 
-def _grid(values: Any, name: str, scan: SheetScan | None) -> list[list[Any]]:
-    """A sheet's rows from A1 as the reader gives them ("" or None for a blank)."""
+_ROWS_AT_ONCE = 4096  # rows turned into columns per step (the rest are never held as rows)
+
+
+def _sheet_data(values: Any, name: str, scan: SheetScan | None,
+                cols_read: int | None = None) -> SheetData:
+    """A sheet's values from A1, column by column."""
     if hasattr(values, "sheets_metadata"):  # python-calamine
-        return values.get_sheet_by_name(name).to_python(skip_empty_area=False)
+        sheet = values.get_sheet_by_name(name)
+        columns = _calamine_columns(sheet)
+        if columns is None:  # rows not laid out as expected: the reader's own block
+            rows = sheet.to_python(skip_empty_area=False)
+            return SheetData.from_rows(name, rows, cols_read=cols_read)
+        n_rows = len(columns[0]) if columns else 0
+        return SheetData(name, [convert_column(c) for c in columns], n_rows,
+                         cols_read=cols_read)
     ws = values[name]
     ws.reset_dimensions()  # the stored dimension may be wrong; the scan counted the cells
     if scan is None:
-        return [list(r) for r in ws.iter_rows(min_row=1, min_col=1, values_only=True)]
-    if scan.last_row == 0:
+        rows = [list(r) for r in ws.iter_rows(min_row=1, min_col=1, values_only=True)]
+    elif scan.last_row == 0:
+        rows = []
+    else:
+        rows = [list(r) for r in ws.iter_rows(min_row=1, min_col=1, max_row=scan.last_row,
+                                               max_col=scan.last_col, values_only=True)]
+    return SheetData.from_rows(name, rows, cols_read=cols_read)
+
+
+def _calamine_columns(sheet: Any) -> list[list[Any]] | None:
+    """The columns of a calamine sheet from A1 (its blanks ""), read a few thousand rows at
+    a time; None when the rows do not cover the sheet's range as expected."""
+    if sheet.start is None or sheet.end is None:
         return []
-    return [list(r) for r in ws.iter_rows(min_row=1, min_col=1, max_row=scan.last_row,
-                                          max_col=scan.last_col, values_only=True)]
+    (r0, c0), (r1, c1) = sheet.start, sheet.end
+    height, width = r1 + 1, c1 + 1
+    columns: list[list[Any]] | None = None
+    seen = 0
+    rows = iter(sheet.iter_rows())
+    while True:
+        chunk = list(islice(rows, _ROWS_AT_ONCE))
+        if not chunk:
+            break
+        seen += len(chunk)
+        lengths = set(map(len, chunk))
+        if len(lengths) != 1 or seen > height:
+            return None
+        if columns is None:
+            columns = [[] for _ in range(lengths.pop())]
+        elif lengths.pop() != len(columns):
+            return None
+        for col, values in zip(columns, zip(*chunk)):
+            col.extend(values)
+    if columns is None:
+        return None
+    # rows and columns before the range's start may or may not be given (readers differ)
+    lead_rows, lead_cols = height - seen, width - len(columns)
+    if lead_rows not in (0, r0) or lead_cols not in (0, c0):
+        return None
+    if lead_rows:
+        for col in columns:
+            col[:0] = [""] * lead_rows
+    return [[""] * height for _ in range(lead_cols)] + columns
 
 
 # --- workbook structure from the archive --------------------------------------------------
@@ -229,8 +279,7 @@ class XlsxBook(Book):
         scan = self.sheet_scan(name)
         if scan is None or scan.block_cells <= MAX_BLOCK_CELLS:
             with reader_guard(self.path.name, name):
-                grid = _grid(self._values, name, scan)
-            sh = SheetData(name, grid)
+                sh = _sheet_data(self._values, name, scan)
         else:
             sh = self._load_columns(name, scan, last_col)
         if scan is not None:
@@ -261,10 +310,9 @@ class XlsxBook(Book):
             buf.seek(0)
             values = _open_values(buf)
             try:
-                grid = _grid(values, name, window)
+                return _sheet_data(values, name, window, cols_read=need)
             finally:
                 values.close()
-        return SheetData(name, grid, cols_read=need)
 
     def _too_large(self, name: str, data: bytes, scan: SheetScan) -> BookError:
         by_row, by_col = far_cells(data, scan)
