@@ -6,8 +6,9 @@ cells have no saved value, and whether the sheet has formulas at all. Its result
 sheet by the workbook, so each sheet's XML is scanned once per run.
 
 Cells written the usual way (``<c r="B7" ...>``, which every spreadsheet program writes) are
-read with regular expressions over whole chunks; a sheet with any other cell syntax (no
-``r`` attribute, namespace prefixes, other quoting) is read with a streaming XML parser.
+read over whole chunks: their positions with numpy, error and formula cells with regular
+expressions; a sheet with any other cell syntax (no ``r`` attribute, namespace prefixes,
+other quoting) is read with a streaming XML parser.
 """
 
 from __future__ import annotations
@@ -15,7 +16,10 @@ from __future__ import annotations
 import io
 import re
 import zipfile
+from collections.abc import Iterator
 from dataclasses import dataclass, field
+
+import numpy as np
 
 from xlbridge.book.refs import Area, RefError, col_letters, col_number, parse_ref
 from xlbridge.book.safety import BookError
@@ -36,9 +40,6 @@ _R_ATTR = re.compile(rb"\br\s*=\s*[\"']\$?([A-Za-z]{1,3})\$?([0-9]+)[\"']")
 _T_ATTR = re.compile(rb"\bt\s*=\s*[\"']([A-Za-z]+)[\"']")
 _V_TEXT = re.compile(rb"<" + _P + rb"v>([^<]*)</" + _P + rb"v>")
 _HAS_VALUE = re.compile(rb"<" + _P + rb"(?:v>[^<]|is[\s>])")
-#: The usual cell start tag; anything else that starts a cell makes the sheet irregular.
-_REGULAR_REF = re.compile(rb'<c r="([A-Z]{1,3})([0-9]{1,7})"')
-_IRREGULAR_CELL = re.compile(rb'<c(?! r="[A-Z]{1,3}[0-9]{1,7}")[\s>]')
 _PREFIXED_CELL = re.compile(rb"<[A-Za-z_][\w.-]*:c[\s>]")
 # Quick tests before the regexes above (searches for a literal start are the fast ones,
 # faster than ``in`` on a piece of XML)
@@ -132,92 +133,100 @@ def _regular_piece(piece: bytes, scan: SheetScan) -> bool:
     return True
 
 
-#: Cells are usually written row by row, so the last cell of a piece is in its last row;
-#: the extent is then confirmed by one search for a cell beyond it, which also finds any
-#: cell not written the usual way. Cells in another order raise the bound at each find:
-#: after this many the piece's cells are all read instead.
-_MAX_RAISES = 16
+_PAD = b"\0" * 16  # so that every look a few bytes past a "<c" stays inside the array
+_STEPS = np.arange(8)
+#: digits 1-8 of a number read as if followed by zeros: 10^7 ... 10^0
+_PLACES = 10.0 ** np.arange(7, -1, -1)
 
 
 def _extent(piece: bytes, scan: SheetScan) -> bool:
     """Widen the scan's extent to the cells of a piece; False if some cell of it is not
-    written the usual way."""
-    col = col_letters(scan.last_col).encode("ascii") if scan.last_col else b""
-    row = scan.last_row
-    at, start = piece.rfind(b'<c r="'), 0
-    for _ in range(_MAX_RAISES):
-        if at >= 0:
-            m = _REGULAR_REF.match(piece, at)
-            if m is None:
-                return False
-            c, r = m.group(1), int(m.group(2))
-            if (len(c), c) > (len(col), col):
-                col = c
-            row = max(row, r)
-        beyond = _beyond(col, row).search(piece, start)
-        if beyond is None:
-            scan.last_row, scan.last_col = row, col_number(col.decode("ascii")) if col else 0
-            return True
-        # the cells before it are within the smaller bounds, so within the raised ones
-        at = start = beyond.start()
-    if _IRREGULAR_CELL.search(piece):
+    written the usual way (``<c r="A1"`` with 1-3 letters and 1-7 digits).
+
+    Every cell start is read at once with numpy (a regular expression costs a step of the
+    matcher per cell, about 0.3 microseconds: a tenth of a second for 10^5 rows x 2)."""
+    a = np.frombuffer(piece + _PAD, np.uint8)
+    at = np.flatnonzero(a == 60)  # "<"
+    at = at[a[at + 1] == 99]  # "<c"
+    nxt = a[at + 2]
+    at = at[(nxt == 32) | (nxt == 62) | ((nxt >= 9) & (nxt <= 13))]  # "<c" + \s or ">"
+    if not at.size:
+        return True
+    if not ((a[at + 2] == 32) & (a[at + 3] == 114) & (a[at + 4] == 61)
+            & (a[at + 5] == 34)).all():  # ' r="'
         return False
-    cols = set(re.findall(rb'<c r="([A-Z]{1,3})[0-9]', piece))
-    widest = max(cols, key=lambda c: (len(c), c))
-    scan.last_col = max(scan.last_col, col_number(widest.decode("ascii")))
-    rows = re.findall(rb'<c r="[A-Z]{1,3}([0-9]{1,7})"', piece)
-    scan.last_row = max(scan.last_row, max(map(int, rows)))
+    p = at + 6
+    # column letters: 1 to 3 of A-Z ((b - 65) & 255 < 26 exactly for those bytes)
+    b0, b1, b2, b3 = (a[p + k] for k in range(4))
+    if not ((b0 - 65) < 26).all():
+        return False
+    two = (b1 - 65) < 26
+    if two.any():
+        three = two & ((b2 - 65) < 26)
+        if (three & ((b3 - 65) < 26)).any():
+            return False
+        c0, c1, c2 = (x.astype(np.int64) - 64 for x in (b0, b1, b2))
+        cols = np.where(three, (c0 * 26 + c1) * 26 + c2, np.where(two, c0 * 26 + c1, c0))
+        last_col = int(cols.max())
+        q = p + 1 + two + three
+    else:  # one letter everywhere (the usual sheet)
+        last_col, q = int(b0.max()) - 64, p + 1
+    # row digits: 1 to 7, then the closing quote
+    d = a[q[:, None] + _STEPS] - 48
+    digit = d < 10
+    n_digits = np.where(digit.all(axis=1), 8, digit.argmin(axis=1))
+    if not (((n_digits >= 1) & (n_digits <= 7)).all()
+            and (a[q + np.minimum(n_digits, 7)] == 34).all()):
+        return False  # no digits, more than 7, or no closing quote
+    padded = np.where(_STEPS < n_digits[:, None], d, 0) @ _PLACES  # exact below 2^53
+    last_row = int((padded / 10.0 ** (8 - n_digits)).max())
+    scan.last_row = max(scan.last_row, last_row)
+    scan.last_col = max(scan.last_col, last_col)
     return True
 
 
-def _greater_number(n: int) -> bytes:
-    """A regex matching the decimal numbers above ``n`` (with any leading zeros)."""
-    d = str(n).encode("ascii")
-    alts = [rb"[1-9][0-9]{%d,}" % len(d)]
-    for i in range(len(d)):
-        if d[i] != ord("9"):
-            rest = rb"[0-9]{%d}" % (len(d) - i - 1) if len(d) - i - 1 else b""
-            alts.append(d[:i] + b"[" + bytes([d[i] + 1]) + b"-9]" + rest)
-    return b"0*(?:" + b"|".join(alts) + b")"
+def _pieces(stream: io.IOBase) -> Iterator[bytes]:
+    """The XML in pieces of about ``_CHUNK`` bytes, each ending at a row end (the last one
+    at the end of the part)."""
+    carry = b""
+    while True:
+        chunk = stream.read(_CHUNK)
+        buf = carry + chunk if carry else chunk
+        if not chunk:
+            if buf:
+                yield buf
+            return
+        cut = buf.rfind(_ROW_END)
+        if cut < 0:
+            carry = buf  # a row longer than a chunk: keep reading
+            continue
+        yield buf[: cut + len(_ROW_END)]
+        carry = buf[cut + len(_ROW_END):]
 
 
-def _beyond(col: bytes, row: int) -> re.Pattern[bytes]:
-    """The first cell right of column ``col`` or below ``row``, or not written the usual
-    way (``_IRREGULAR_CELL``)."""
-    return re.compile(rb'<c(?: r="(?:' + _greater_letters(col.decode("ascii")) + rb"[0-9]"
-                      + rb"|[A-Z]{1,3}" + _greater_number(row) + rb'")'
-                      + rb'|(?! r="[A-Z]{1,3}[0-9]{1,7}")[\s>])')
+def _scan_pieces(stream: io.IOBase) -> SheetScan | None:
+    """The scan of regular XML; None when some cell is not written the usual way."""
+    scan = SheetScan()
+    for piece in _pieces(stream):
+        if not _regular_piece(piece, scan):
+            return None
+    return scan
 
 
 def scan_sheet_bytes(data: bytes) -> SheetScan:
     """Scan a whole sheet part held in memory."""
-    scan = SheetScan()
-    if not _regular_piece(data, scan):
-        return _scan_slow(io.BytesIO(data))
-    return scan
+    scan = _scan_pieces(io.BytesIO(data))
+    return _scan_slow(io.BytesIO(data)) if scan is None else scan
 
 
 def scan_sheet(zf: zipfile.ZipFile, part: str) -> SheetScan:
     """Scan a sheet part of an open archive in one streaming pass."""
-    scan = SheetScan()
-    carry = b""
     with zf.open(part) as fh:
-        while True:
-            chunk = fh.read(_CHUNK)
-            buf = carry + chunk if carry else chunk
-            if not chunk:
-                piece, carry = buf, b""
-            else:
-                cut = buf.rfind(_ROW_END)
-                if cut < 0:
-                    carry = buf  # a row longer than a chunk: keep reading
-                    continue
-                piece, carry = buf[: cut + len(_ROW_END)], buf[cut + len(_ROW_END):]
-            if piece and not _regular_piece(piece, scan):
-                with zf.open(part) as again:
-                    return _scan_slow(again)
-            if not chunk:
-                return scan
+        scan = _scan_pieces(fh)
+    if scan is None:
+        with zf.open(part) as again:
+            return _scan_slow(again)
+    return scan
 
 
 def _scan_slow(stream: io.IOBase) -> SheetScan:
