@@ -352,11 +352,15 @@ _NAME_BYTES = 100  # of the output name kept in a temporary name (file names max
 
 def _host_tag() -> str:
     # Process ids mean something only on the machine that issued them; the tag tells whether
-    # a temporary file in a shared folder was written here. (socket is imported here: only
-    # a run that writes a file needs it, and it costs the others ~5 ms of start-up.)
-    import socket
+    # a temporary file in a shared folder was written here. The host name from uname where
+    # there is one (what gethostname gives there, without socket's ~5 ms of start-up).
+    if hasattr(os, "uname"):
+        host = os.uname().nodename
+    else:  # pragma: no cover - Windows
+        import socket
 
-    return f"{zlib.crc32(socket.gethostname().encode('utf-8', 'replace')) & 0xFFFFFF:06x}"
+        host = socket.gethostname()
+    return f"{zlib.crc32(host.encode('utf-8', 'replace')) & 0xFFFFFF:06x}"
 
 
 def _short_name(name: str) -> str:

@@ -149,8 +149,9 @@ class Parser(argparse.ArgumentParser):
                 return  # the rest belongs to the command
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The parser of the ``xlbridge`` command and its subcommands."""
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The parser of the ``xlbridge`` command and its subcommands (with ``only``, the
+    options of that command alone are set up: the others are listed, not configured)."""
     from xlbridge import __version__
 
     examples = "\n".join(f"  {c.example}" for c in COMMANDS)
@@ -170,14 +171,18 @@ def build_parser() -> argparse.ArgumentParser:
             epilog=f"example:\n  {c.example}\n\n{REF_HELP}.\n{EXIT_HELP}",
             formatter_class=argparse.RawDescriptionHelpFormatter,
         )
-        c.configure(p)
-        p.set_defaults(_command=c)
+        if only is None or c.name == only:
+            c.configure(p)
+            p.set_defaults(_command=c)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``xlbridge`` console command; returns the exit code."""
-    parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    # setting up the options of every command costs more start-up than any one needs
+    named = argv[0] if argv and any(c.name == argv[0] for c in COMMANDS) else None
+    parser = build_parser(named)
     args = parser.parse_args(argv)
     command: Command | None = getattr(args, "_command", None)
     if command is None:
