@@ -27,6 +27,7 @@ from .dist import chi2_sf, f_pvalue, t_pvalue, t_quantile
 from .refine import spans
 from .result import FitResult
 from .solve import monomials
+from .threads import blas_threads
 
 P_WATCH, P_PROBLEM = 0.05, 0.01
 
@@ -242,13 +243,14 @@ def heteroscedasticity_tests(res: FitResult) -> tuple[tuple[float, float, int], 
             list(range(len(white_powers) + 1)))
     centers, scales = res.basis.centers, res.basis.scales
     r_facs: list[np.ndarray | None] = [None, None]
-    for s, e in spans(n):
-        t = (res.x[s:e] - centers) / scales
-        block = np.empty((e - s, len(white_powers) + 1), order="F")
-        block[:, :-1] = monomials(t, white_powers)
-        block[:, -1] = e2[s:e]
-        for i, c in enumerate(cols):
-            r_facs[i] = _r_factor(r_facs[i], block[:, c])
+    with blas_threads(0):  # a block's factorisation is a small product (see threads.py)
+        for s, e in spans(n):
+            t = (res.x[s:e] - centers) / scales
+            block = np.empty((e - s, len(white_powers) + 1), order="F")
+            block[:, :-1] = monomials(t, white_powers)
+            block[:, -1] = e2[s:e]
+            for i, c in enumerate(cols):
+                r_facs[i] = _r_factor(r_facs[i], block[:, c])
     out = []
     for r_aug in r_facs:
         r2, rank = _aux_r2(r_aug, n, sst)
@@ -292,22 +294,27 @@ def distinct_rows(x: np.ndarray) -> tuple[np.ndarray, int]:
     return groups, int(ids[-1]) + 1
 
 
-def lack_of_fit(res: FitResult) -> LackOfFit | None:
+def lack_of_fit(res: FitResult, rows: tuple[np.ndarray, int] | None = None
+                ) -> LackOfFit | None:
     """F = (SS_lof / (m - p)) / (SS_pe / (n - m)) on F(m - p, n - m), with m distinct x rows
     among the n rows used and p coefficients; SS_pe is the (weighted) scatter of y about
     each distinct x row's (weighted) mean, on the fit's scale (ln y for log fits), and
-    SS_lof = SSE - SS_pe. None when no x row repeats or m <= p (nothing to test)."""
+    SS_lof = SSE - SS_pe. None when no x row repeats or m <= p (nothing to test). ``rows``:
+    ``distinct_rows(res.x)`` where the caller has it already."""
     n, p = res.stats.n_used, res.stats.n_params
-    groups, m = distinct_rows(res.x)
+    groups, m = distinct_rows(res.x) if rows is None else rows
     if m == n or m <= p:
         return None
-    w = np.ones(n) if res.weights is None else res.weights
+    w = res.weights
     # y minus its group mean equals e minus the group's mean residual (one fitted value per
     # x row); residuals avoid the cancellation of subtracting large y values
     e = res.residuals
-    e_bar = np.bincount(groups, w * e, m) / np.bincount(groups, w, m)
+    if w is None:  # weights of 1 change no product: the same numbers without them
+        e_bar = np.bincount(groups, e, m) / np.bincount(groups, minlength=m)
+    else:
+        e_bar = np.bincount(groups, w * e, m) / np.bincount(groups, w, m)
     d = e - e_bar[groups]
-    ss_pure = float(np.sum(w * d * d))
+    ss_pure = float(np.sum(d * d)) if w is None else float(np.sum(w * d * d))
     ss_lack = max(res.stats.sse - ss_pure, 0.0)
     df_lack, df_pure = m - p, n - m
     if ss_pure > 0:
@@ -462,9 +469,10 @@ def checks(res: FitResult) -> tuple[Check, ...]:
 
 def _lack_of_fit_check(res: FitResult, scale: str) -> Check:
     name = "lack of fit (pure error)"
-    lof = lack_of_fit(res)
+    rows = distinct_rows(res.x)
+    lof = lack_of_fit(res, rows)
     if lof is None:
-        m = distinct_rows(res.x)[1]
+        m = rows[1]
         why = ("no repeated x values" if m == res.stats.n_used else
                f"{m} distinct x values for {res.stats.n_params} coefficients")
         return Check(name, math.nan, math.nan, "n/a", f"not available: {why}")
