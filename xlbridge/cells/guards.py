@@ -88,31 +88,33 @@ def find_totals(y: np.ndarray, x: np.ndarray, usable: np.ndarray) -> list[tuple[
     or the mean of the usable data rows above it: since the last total found (a subtotal)
     or since the first row (a grand total), over at least three rows whose y vary."""
     idx = np.flatnonzero(usable)
-    vals = np.column_stack([y[idx], x[idx]])  # (m, 1 + k)
+    ys, xs = y[idx], x[idx]
     data = np.ones(len(idx), dtype=bool)  # rows of data, not totals
     found: list[tuple[int, str]] = []
     start = 0
     while start < len(idx):
         best: tuple[int, str] | None = None
         for lo in sorted({0, start}):
-            block, keep = vals[lo:], data[lo:]
+            yb, keep = ys[lo:], data[lo:]
             counts = np.cumsum(keep)
             above_n = np.concatenate([[0], counts[:-1]])
-            yv = np.where(keep, block[:, 0], np.nan)
-            spread = np.fmax.accumulate(yv) > np.fmin.accumulate(yv)
-            varied = np.concatenate([[False], spread[:-1]])
             # y first, column by column: the other columns are compared only in the rows
             # where y matches (few), which keeps a long column's temporaries small
-            y_sum, y_mean = _above(block[:, 0], keep, above_n)
-            y_is_sum = _near(block[:, 0], y_sum)
-            match = (above_n >= _MIN_ROWS) & varied & (y_is_sum | _near(block[:, 0], y_mean))
+            y_sum, y_mean = _above(yb, keep, above_n)
+            y_is_sum = _near(yb, y_sum)
+            match = (above_n >= _MIN_ROWS) & (y_is_sum | _near(yb, y_mean))
             match[: start - lo] = False
-            for c in range(1, block.shape[1]):
+            if match.any():
+                # the y above a row vary once a kept y differs from the first kept one
+                kept = np.flatnonzero(keep)
+                differs = np.flatnonzero(yb[kept] != yb[kept[0]])
+                match[: kept[differs[0]] + 1 if len(differs) else len(match)] = False
+            for c in range(xs.shape[1]):
                 if not match.any():
                     break
                 rows = np.flatnonzero(match)
-                c_sum, c_mean = _above(block[:, c], keep, above_n)
-                v = block[rows, c]
+                c_sum, c_mean = _above(xs[lo:, c], keep, above_n)
+                v = xs[lo + rows, c]
                 match[rows] = _near(v, c_sum[rows]) | _near(v, c_mean[rows])
             if match.any():
                 j = int(np.argmax(match))
