@@ -35,19 +35,25 @@ def _verdicts(res):
     return {c.check: c for c in checks(res)}
 
 
-def test_heteroscedasticity_and_independence_statistics():
-    """Breusch-Pagan, White, Durbin-Watson (source: statsmodels het_breuschpagan, het_white,
-    durbin_watson on the raw design)."""
-    x, y = _hetero()
-    res = fit(y, x, 2)
+def _hetero_checked(x, y):
+    """Our checks of a degree-2 fit and statsmodels' OLS of the raw design, after asserting
+    that Breusch-Pagan and White (statistic and p) equal its het_breuschpagan and
+    het_white."""
+    c = _verdicts(fit(y, x, 2))
     ref = sm.OLS(y, _design(x, 2)).fit()
-    c = _verdicts(res)
     bp = het_breuschpagan(ref.resid, _design(x, 2))
     wh = het_white(ref.resid, _design(x, 2))
     assert c["constant variance (Breusch-Pagan)"].statistic == pytest.approx(bp[0], rel=1e-9)
     assert c["constant variance (Breusch-Pagan)"].p_value == pytest.approx(bp[1], rel=1e-8)
     assert c["constant variance (White)"].statistic == pytest.approx(wh[0], rel=1e-9)
     assert c["constant variance (White)"].p_value == pytest.approx(wh[1], rel=1e-8)
+    return c, ref
+
+
+def test_heteroscedasticity_and_independence_statistics():
+    """Breusch-Pagan, White, Durbin-Watson (source: statsmodels het_breuschpagan, het_white,
+    durbin_watson on the raw design)."""
+    c, ref = _hetero_checked(*_hetero())
     assert c["independence (Durbin-Watson)"].statistic == pytest.approx(
         durbin_watson(ref.resid), rel=1e-12)
 
@@ -312,11 +318,4 @@ def test_heteroscedasticity_statistics_match_exact_arithmetic(block, monkeypatch
 def test_heteroscedasticity_statistics_across_row_blocks():
     """Breusch-Pagan and White on 20,000 rows (three blocks of the auxiliary designs)
     against statsmodels het_breuschpagan and het_white on the raw design."""
-    x, y = _hetero(seed=5, n=20_000)
-    res = fit(y, x, 2)
-    ref = sm.OLS(y, _design(x, 2)).fit()
-    c = _verdicts(res)
-    bp = het_breuschpagan(ref.resid, _design(x, 2))
-    wh = het_white(ref.resid, _design(x, 2))
-    assert c["constant variance (Breusch-Pagan)"].statistic == pytest.approx(bp[0], rel=1e-9)
-    assert c["constant variance (White)"].statistic == pytest.approx(wh[0], rel=1e-9)
+    _hetero_checked(*_hetero(seed=5, n=20_000))
