@@ -237,9 +237,13 @@ def fit(
                              ModelErrorKind.SPEC) from None
         raise
 
-    used = ~np.isnan(yv) & ~np.isnan(xv).any(axis=1)
-    if wv is not None:
-        used &= ~np.isnan(wv)
+    # built in one boolean array (no temporary per column); the same rows as
+    # ~isnan(y) & ~isnan(x).any(axis=1) & ~isnan(weights)
+    used = np.isnan(yv)
+    spare = np.empty_like(used)
+    for col in [xv[:, j] for j in range(xv.shape[1])] + ([] if wv is None else [wv]):
+        used |= np.isnan(col, out=spare)
+    np.logical_not(used, out=used)
     for what, arr in (("y", yv), ("x", xv), ("weights", wv)):
         if arr is not None and np.isinf(arr).any():
             bad = np.isinf(arr.reshape(len(yv), -1)).any(axis=1) & used
@@ -248,7 +252,7 @@ def fit(
                 raise ModelError(f"{what} has an infinite value in row {row}", ModelErrorKind.DATA)
     if wv is not None and np.any(wv[used] <= 0):
         raise ModelError("weights must be positive numbers", ModelErrorKind.DATA)
-    n_dropped = int(np.count_nonzero(~used))
+    n_dropped = len(used) - int(np.count_nonzero(used))
     if n_dropped:
         yu, xu = yv[used], xv[used]
         wu = None if wv is None else wv[used]

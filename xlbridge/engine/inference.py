@@ -116,7 +116,13 @@ def build(
         bic = -2 * llf + math.log(n) * p
         h = core.leverage
         ew = core.residuals if w is None else core.residuals * np.sqrt(w)
-        press = float(np.sum((ew / (1.0 - h)) ** 2)) if np.all(h < 1) else math.inf
+        # one n-vector for (e / (1 - h))^2, and max(h) < 1 for all(h < 1) (NaN fails both)
+        if np.max(h) < 1:
+            q_e = np.subtract(1.0, h)
+            np.divide(ew, q_e, out=q_e)
+            press = float(np.sum(np.square(q_e, out=q_e)))
+        else:
+            press = math.inf
         pred_r2 = 1.0 - press / sst if sst > 0 else math.nan
     top = _top_term_p(spec, core.b, cov_scaled, df)
     nonint = [c.vif for c in coefs if c.term != "intercept"]
@@ -273,7 +279,10 @@ def rescale(res: FitResult, y_scale: float, weights: np.ndarray | None,
     units: estimates, errors and intervals times y_scale (exact, a power of two); t, p, R^2,
     F and VIFs unchanged. ``cov`` and ``scaled_cov`` are in the data's units unless that
     would underflow or overflow; then they stay in units of y_scale^2 (``FitResult.y_scale``,
-    1 otherwise)."""
+    1 otherwise). ``fitted``, ``residuals`` and ``y`` of ``res`` are scaled in place: they
+    must be arrays made for ``res`` alone (as ``build`` and ``solve`` make them), and ``res``
+    is not to be used afterwards (at 10^6 rows three fresh n-vectors cost more in page
+    faults than the multiplications)."""
     sy, g = y_scale, w_ratio
     # built directly (dataclasses.replace costs more than the arithmetic at p = 28)
     coefs = tuple(Coefficient(c.term, c.estimate * sy, c.std_error * sy, c.t_ratio, c.p_value,
@@ -299,12 +308,14 @@ def rescale(res: FitResult, y_scale: float, weights: np.ndarray | None,
         if _in_range(cov, sy) and _in_range(scaled_cov, sy):  # the usual case: data's units
             cov, scaled_cov, keep = cov * sy * sy, scaled_cov * sy * sy, 1.0
         scaled_inv = res.scaled_inv / g
+    for arr in (res.fitted, res.residuals, res.y):
+        arr *= sy
     return replace(res, coefficients=coefs, stats=stats, centered=centered,
-                   fitted=res.fitted * sy, residuals=res.residuals * sy,
+                   fitted=res.fitted, residuals=res.residuals,
                    scaled_coef=res.scaled_coef * sy, scaled_inv=scaled_inv, cov=cov,
                    scaled_cov=scaled_cov, weights=weights,
                    max_data_leverage_form=res.max_data_leverage_form / g,
-                   y=res.y * sy, y_scale=keep)
+                   y=res.y, y_scale=keep)
 
 
 #: Covariances are written in the data's units while every variance stays between these

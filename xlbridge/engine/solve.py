@@ -55,8 +55,12 @@ class Basis:
     scales: np.ndarray
     powers: tuple[tuple[int, ...], ...]  # every column, intercept (zeros) first if present
 
-    def design(self, x: np.ndarray) -> np.ndarray:
-        t = (x - self.centers) / self.scales
+    def design(self, x: np.ndarray, scratch: np.ndarray | None = None) -> np.ndarray:
+        """The scaled monomial columns; ``scratch`` (an n-vector) holds the scaled
+        predictor of a one-predictor model instead of a new array."""
+        out = scratch[:, None] if scratch is not None and x.shape[1] == 1 else None
+        t = np.subtract(x, self.centers, out=out)
+        t /= self.scales  # in place: one n x k temporary at most, not two
         return monomials(t, self.powers)
 
     def raw_map(self) -> list[list[Fraction]]:
@@ -120,9 +124,11 @@ def power_of_two_scale(spread: np.ndarray) -> np.ndarray:
     return np.where(ok, np.ldexp(1.0, np.frexp(np.where(ok, spread, 1.0))[1]), 1.0)
 
 
-def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Basis:
+def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
+                 scratch: np.ndarray | None = None) -> Basis:
     """Center each predictor at its (weighted) mean where the model allows it; a column no
-    term uses keeps center 0 and scale 1, so its values never matter."""
+    term uses keeps center 0 and scale 1, so its values never matter. ``scratch``, an
+    optional n-vector, receives col / pre (no new n-vector per column)."""
     centrable = spec.centrable()
     used = [any(q[j] for q in spec.all_powers) for j in range(x.shape[1])]
     centers = np.zeros(x.shape[1])
@@ -131,14 +137,20 @@ def choose_basis(x: np.ndarray, w: np.ndarray | None, spec: ModelSpec) -> Basis:
         col = x[:, j]
         if not used[j] or not len(col):
             continue
-        pre = float(power_of_two_scale(np.array([np.max(np.abs(col))]))[0])
+        # max|col| and max|col / pre - c / pre| from max(col) and min(col) alone: rounding
+        # is monotone, so the largest |value| of a monotone function of col is that at its
+        # max or its min; the same doubles as forming the n-vectors, without them
+        top, bottom = float(np.max(col)), float(np.min(col))
+        pre = float(power_of_two_scale(np.array([max(top, -bottom)]))[0])
         if centrable[j]:  # the mean of col / pre (exact) cannot overflow
-            centers[j] = np.average(col / pre, weights=w) * pre
+            scaled = np.divide(col, pre, out=scratch) if scratch is not None else col / pre
+            centers[j] = np.average(scaled, weights=w) * pre
+        c = centers[j] / pre
         with np.errstate(over="ignore"):
-            spread = float(np.max(np.abs(col / pre - centers[j] / pre))) * pre
+            spread = max(abs(top / pre - c), abs(bottom / pre - c)) * pre
         if not np.isfinite(spread):
             raise ModelError(f"{spec.predictors[j]} spans more than the double range "
-                             f"(values up to {float(np.max(np.abs(col))):.3g}); rescale it, "
+                             f"(values up to {max(top, -bottom):.3g}); rescale it, "
                              "e.g. divide it by 1e300", ModelErrorKind.SCALE)
         scales[j] = power_of_two_scale(spread)
     return Basis(centers, scales, spec.all_powers)
@@ -159,8 +171,9 @@ def check_terms(x: np.ndarray, y: np.ndarray, spec: ModelSpec) -> None:
     if not len(x):
         return
     with np.errstate(divide="ignore"):
-        top = np.log10(np.max(np.abs(x), axis=0))
-        ytop = float(np.log10(np.max(np.abs(y)))) if len(y) else -np.inf
+        # max|v| as max(max v, -min v): the same doubles, without an |v| temporary
+        top = np.log10(np.maximum(np.max(x, axis=0), -np.min(x, axis=0)))
+        ytop = float(np.log10(max(np.max(y), -np.min(y)))) if len(y) else -np.inf
     for q, label in zip(spec.powers, spec.terms[int(spec.intercept):]):
         idx = [j for j, e in enumerate(q) if e]
         if any(top[j] == -np.inf for j in idx):
@@ -218,12 +231,54 @@ def _alias_error(spec: ModelSpec, col: int, x: np.ndarray) -> ModelError:
 
 def _leverage(q_source: np.ndarray, rinv: np.ndarray) -> np.ndarray:
     """Row sums of squares of q_source @ rinv, in chunks to bound memory."""
-    n = q_source.shape[0]
+    n, p = q_source.shape
     h = np.empty(n)
+    if p > LANE_SUM_MAX:
+        for s in range(0, n, _CHUNK):
+            blk = q_source[s : s + _CHUNK] @ rinv
+            h[s : s + _CHUNK] = np.einsum("ij,ij->i", blk, blk)
+        return h
+    # Few columns: the chunk's product is formed transposed (p x rows, each row of it one
+    # contiguous vector) and its squares summed a column at a time, which is several times
+    # faster than einsum's reduction over p entries per row. h is a sum of p nonnegative
+    # squares, so any order of summation is within (p - 1) eps relative of the exact sum;
+    # the order used (even-numbered and odd-numbered columns summed separately, then
+    # added) is the one numpy's einsum used for these sizes, so the doubles are unchanged.
+    work = np.empty((p, min(_CHUNK, n)))
     for s in range(0, n, _CHUNK):
-        blk = q_source[s : s + _CHUNK] @ rinv
-        h[s : s + _CHUNK] = np.einsum("ij,ij->i", blk, blk)
+        e = min(s + _CHUNK, n)
+        blk = np.matmul(rinv.T, q_source[s:e].T, out=work[:, : e - s])
+        hs = h[s:e]
+        np.multiply(blk[0], blk[0], out=hs)
+        for j in range(2, p, 2):
+            np.multiply(blk[j], blk[j], out=blk[j])
+            hs += blk[j]
+        if p > 1:
+            odd = blk[1]
+            np.multiply(odd, odd, out=odd)
+            for j in range(3, p, 2):
+                np.multiply(blk[j], blk[j], out=blk[j])
+                odd += blk[j]
+            hs += odd
     return h
+
+
+#: Up to this many columns the leverage sums its squares column by column (see _leverage).
+LANE_SUM_MAX = 7
+
+
+def _design_top(an: np.ndarray, x: np.ndarray, w: np.ndarray | None) -> float:
+    """max|an| of the unit-column design. One predictor without weights: every column is
+    fl(t^e) / norm with t = fl(x - c) / s, each step rounded monotonically, so |entry| never
+    decreases with |t|, and |t| is largest at the row of max x or of min x; those two rows
+    hold the same maximum as the whole design (the same double, two short reads instead
+    of two passes over n x p)."""
+    if not an.size:
+        return 0.0
+    if w is None and x.shape[1] == 1:
+        col = x[:, 0]
+        an = an[[int(np.argmax(col)), int(np.argmin(col))]]
+    return float(max(np.max(an), -np.min(an)))
 
 
 def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
@@ -243,8 +298,11 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
 def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
            certify: bool) -> Core:
     n = len(y)
-    basis = choose_basis(x, w, spec)
-    an = basis.design(x)  # becomes the weighted, unit-column design in place
+    # one n-vector of scratch for the whole solve: at 10^6 rows every fresh n-vector costs
+    # about as much in first-touch page faults as the arithmetic written into it
+    scratch = np.empty(n)
+    basis = choose_basis(x, w, spec, scratch)
+    an = basis.design(x, scratch)  # becomes the weighted, unit-column design in place
     p = an.shape[1]
     sw = None if w is None else np.sqrt(w)
     if sw is not None:
@@ -283,11 +341,14 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
         del q
     else:
         bn = inv_n @ (an.T @ z)
-        bn = bn + inv_n @ (an.T @ (z - an @ bn))  # corrected semi-normal equations
+        r0 = np.matmul(an, bn, out=scratch)
+        np.subtract(z, r0, out=r0)
+        bn = bn + inv_n @ (an.T @ r0)  # corrected semi-normal equations
         h = _leverage(an, rinv)
-    resid_w = z - an @ bn
+    resid_w = an @ bn
+    np.subtract(z, resid_w, out=resid_w)
     # largest |entry| of the unit-column design, for the residual's rounding estimate
-    amax = float(max(np.max(an), -np.min(an))) if an.size else 0.0
+    amax = _design_top(an, x, w)
     del an
     b = bn / norms
     if not (np.all(np.isfinite(b)) and np.all(np.isfinite(resid_w))):
@@ -302,13 +363,14 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
     beta = _raw_coef(m_hi, m_lo, b, np.zeros(p), y, x)
     inv_raw = m_hi @ inv_scaled @ m_hi.T
     resid = resid_w if sw is None else resid_w / sw
-    sse = float(np.sum(resid_w * resid_w))
-    sst = weighted_sst(y, w) if spec.intercept else float(np.sum(z * z))
+    sse = float(np.sum(np.multiply(resid_w, resid_w, out=scratch)))
+    sst = weighted_sst(y, w, scratch) if spec.intercept else float(np.sum(
+        np.multiply(z, z, out=scratch)))
     if not (np.isfinite(sse) and np.isfinite(sst) and np.all(np.isfinite(inv_raw))):
         raise ModelError(too_large(y, x), ModelErrorKind.SCALE)
 
     bound = _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
-                         sst)
+                         sst, scratch)
     core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
                 gram, m_hi)
     if bound <= ACCEPT_ERROR or not certify:
@@ -376,10 +438,15 @@ def _refined(x, y, w, spec: ModelSpec, core: Core, m_hi, m_lo) -> Core | None:
                 gram=core.gram, raw_map=m_hi)
 
 
-def weighted_sst(y: np.ndarray, w: np.ndarray | None) -> float:
-    """Total sum of squares about the (weighted) mean, two-pass, summed pairwise."""
-    d = y - np.average(y, weights=w)
-    return float(np.sum(d * d)) if w is None else float(np.sum(w * d * d))
+def weighted_sst(y: np.ndarray, w: np.ndarray | None, out: np.ndarray | None = None) -> float:
+    """Total sum of squares about the (weighted) mean, two-pass, summed pairwise; ``out``
+    (an optional n-vector) holds the working values."""
+    d = np.subtract(y, np.average(y, weights=w), out=out)
+    if w is not None:
+        d2 = w * d
+        d2 *= d  # w * d * d, multiplied in the same order
+        return float(np.sum(d2))
+    return float(np.sum(np.multiply(d, d, out=d)))
 
 
 #: Rounding errors of the fitted values are independent of the residuals' signs once the
@@ -390,7 +457,7 @@ RSS_FACTOR = 8.0
 
 
 def _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
-                 sst) -> float:
+                 sst, scratch=None) -> float:
     """First-order estimate of the worst relative error among the reported quantities of a
     double-precision solve on the unit-column basis A (weighted response z).
 
@@ -420,12 +487,13 @@ def _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse
         ms = mabs / norms
         d_inv = 2 * eta * (ms @ sd) * (ms @ rowsum)
         rel_inv = d_inv / np.abs(np.diag(inv_raw))
-        a = np.abs(z)
+        a = np.abs(z, out=scratch)
         a += amax * bn1  # u = (p + 1) eps a
-        ra = resid_w * a
+        aa = float(a @ a)
+        ra = np.multiply(resid_w, a, out=a)
         gam = (p + 1) * EPS
         cross = RSS_FACTOR * 2 * gam * float(np.sqrt(ra @ ra))
-        rel_sse = ((cross + gam * gam * float(a @ a)) / sse if sse > 0 else np.inf) + (
+        rel_sse = ((cross + gam * gam * aa) / sse if sse > 0 else np.inf) + (
             np.log2(max(n, 2)) + 20) * EPS
         # SST and SSE (pairwise sums) are off by at most (log2 n + 20) eps relative
         rel_r2 = _r2_error(rel_sse, (np.log2(max(n, 2)) + 20) * EPS, sse, sst)
