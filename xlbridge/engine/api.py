@@ -243,6 +243,7 @@ def fit(
     spare = np.empty_like(used)
     for col in [xv[:, j] for j in range(xv.shape[1])] + ([] if wv is None else [wv]):
         used |= np.isnan(col, out=spare)
+    del spare
     np.logical_not(used, out=used)
     for what, arr in (("y", yv), ("x", xv), ("weights", wv)):
         if arr is not None and np.isinf(arr).any():

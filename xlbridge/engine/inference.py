@@ -116,13 +116,15 @@ def build(
         bic = -2 * llf + math.log(n) * p
         h = core.leverage
         ew = core.residuals if w is None else core.residuals * np.sqrt(w)
-        # one n-vector for (e / (1 - h))^2, and max(h) < 1 for all(h < 1) (NaN fails both)
+        # (e / (1 - h))^2 is worked in the array that then receives the fitted values (one
+        # new n-vector, not two); max(h) < 1 for all(h < 1) (NaN fails both)
+        fitted = np.subtract(1.0, h)
         if np.max(h) < 1:
-            q_e = np.subtract(1.0, h)
-            np.divide(ew, q_e, out=q_e)
-            press = float(np.sum(np.square(q_e, out=q_e)))
+            np.divide(ew, fitted, out=fitted)
+            press = float(np.sum(np.square(fitted, out=fitted)))
         else:
             press = math.inf
+        np.subtract(y, core.residuals, out=fitted)
         pred_r2 = 1.0 - press / sst if sst > 0 else math.nan
     top = _top_term_p(spec, core.b, cov_scaled, df)
     nonint = [c.vif for c in coefs if c.term != "intercept"]
@@ -156,7 +158,7 @@ def build(
     hform = core.leverage if w is None else core.leverage / w
     return FitResult(
         spec=spec, coefficients=coefs, stats=stats, centered=centered, level=level,
-        n_dropped=n_dropped, notes=tuple(notes), fitted=y - core.residuals,
+        n_dropped=n_dropped, notes=tuple(notes), fitted=fitted,
         residuals=core.residuals, leverage=core.leverage, used=used,
         x_min=x.min(axis=0), x_max=x.max(axis=0), cov=cov_raw,
         method=core.method, response=response, basis=basis, scaled_coef=core.b,
@@ -260,7 +262,7 @@ def _top_term_p(spec: ModelSpec, b: np.ndarray, cov: np.ndarray, df: int) -> flo
 def response_scale(y: np.ndarray) -> float:
     """The power of two at or above max |y| (1 for all-zero y): dividing by it is exact and
     keeps sums of squares of the response inside the double range whatever its units."""
-    top = float(np.max(np.abs(y))) if len(y) else 0.0
+    top = float(max(np.max(y), -np.min(y))) if len(y) else 0.0  # max|y|, no |y| array
     return float(power_of_two_scale(np.array([top]))[0])
 
 

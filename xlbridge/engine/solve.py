@@ -45,6 +45,13 @@ CHOLESKY_MIN_ROWS = 20_000
 #: (the sine of the angle between a column and the span of those before it) exceeds this.
 CHOLESKY_MIN_DIAG = 1e-4
 _CHUNK = 65_536
+#: Column counts whose Gram product is formed with one zero column added: the BLAS here
+#: (OpenBLAS, Haswell kernels) takes about twice as long for 3 or 7 columns as for 4 or 8.
+#: Each entry of the product is the same sum over the rows either way (the same doubles
+#: on this build, checked on the typical fits); were a BLAS to round it differently, the
+#: difference would be within the Gram's own rounding, which the Cholesky path's error
+#: estimate (_plain_bound) already allows for.
+PADDED_GRAM = (3, 7)
 
 
 @dataclass(frozen=True)
@@ -55,13 +62,15 @@ class Basis:
     scales: np.ndarray
     powers: tuple[tuple[int, ...], ...]  # every column, intercept (zeros) first if present
 
-    def design(self, x: np.ndarray, scratch: np.ndarray | None = None) -> np.ndarray:
-        """The scaled monomial columns; ``scratch`` (an n-vector) holds the scaled
-        predictor of a one-predictor model instead of a new array."""
-        out = scratch[:, None] if scratch is not None and x.shape[1] == 1 else None
-        t = np.subtract(x, self.centers, out=out)
+    def design(self, x: np.ndarray, scratch: np.ndarray | None = None,
+               out: np.ndarray | None = None) -> np.ndarray:
+        """The scaled monomial columns (into ``out``, an n x p Fortran-order array, if
+        given); ``scratch`` (an n-vector) holds the scaled predictor of a one-predictor
+        model instead of a new array."""
+        tbuf = scratch[:, None] if scratch is not None and x.shape[1] == 1 else None
+        t = np.subtract(x, self.centers, out=tbuf)
         t /= self.scales  # in place: one n x k temporary at most, not two
-        return monomials(t, self.powers)
+        return monomials(t, self.powers, out)
 
     def raw_map(self) -> list[list[Fraction]]:
         """Exact map: raw-unit coefficients = M @ scaled-basis coefficients."""
@@ -92,11 +101,14 @@ class Basis:
         return out
 
 
-def monomials(t: np.ndarray, powers: tuple[tuple[int, ...], ...]) -> np.ndarray:
-    """Columns prod_j t_j^e_j (Fortran order). Each column is one multiplication of a column
-    already built (a parent with one exponent lower), written in place."""
+def monomials(t: np.ndarray, powers: tuple[tuple[int, ...], ...],
+              out: np.ndarray | None = None) -> np.ndarray:
+    """Columns prod_j t_j^e_j (Fortran order; into ``out`` if given). Each column is one
+    multiplication of a column already built (a parent with one exponent lower), written
+    in place."""
     n, k = t.shape
-    out = np.empty((n, len(powers)), order="F")
+    if out is None:
+        out = np.empty((n, len(powers)), order="F")
     tcols = [np.ascontiguousarray(t[:, j]) for j in range(k)]
     done: dict[tuple[int, ...], int] = {}
     for i, q in enumerate(powers):
@@ -297,13 +309,16 @@ def solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
 
 def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
            certify: bool) -> Core:
-    n = len(y)
-    # one n-vector of scratch for the whole solve: at 10^6 rows every fresh n-vector costs
-    # about as much in first-touch page faults as the arithmetic written into it
-    scratch = np.empty(n)
+    n, p = len(y), len(spec.all_powers)
+    # one n-vector of scratch for the whole solve (at 10^6 rows every fresh n-vector costs
+    # about as much in first-touch page faults as the arithmetic written into it); for a
+    # padded Gram product (PADDED_GRAM) it is the column after the design's
+    padded = p in PADDED_GRAM and n >= CHOLESKY_MIN_ROWS
+    full = np.empty((n, p + 1), order="F") if padded else None
+    scratch = full[:, p] if padded else np.empty(n)
     basis = choose_basis(x, w, spec, scratch)
-    an = basis.design(x, scratch)  # becomes the weighted, unit-column design in place
-    p = an.shape[1]
+    # becomes the weighted, unit-column design in place
+    an = basis.design(x, scratch, out=full[:, :p] if padded else None)
     sw = None if w is None else np.sqrt(w)
     if sw is not None:
         an *= sw[:, None]
@@ -318,7 +333,11 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
     if n >= CHOLESKY_MIN_ROWS:
         try:
             with blas_threads(n * p * p):
-                gram_n = an.T @ an
+                if padded:
+                    scratch.fill(0.0)
+                    gram_n = (full.T @ full)[:p, :p]
+                else:
+                    gram_n = an.T @ an
             r_fac = np.linalg.cholesky(gram_n).T
         except np.linalg.LinAlgError:
             r_fac = None
@@ -344,6 +363,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
         r0 = np.matmul(an, bn, out=scratch)
         np.subtract(z, r0, out=r0)
         bn = bn + inv_n @ (an.T @ r0)  # corrected semi-normal equations
+        del r0  # a view of scratch
         h = _leverage(an, rinv)
     resid_w = an @ bn
     np.subtract(z, resid_w, out=resid_w)
@@ -371,6 +391,7 @@ def _solve(x: np.ndarray, y: np.ndarray, w: np.ndarray | None, spec: ModelSpec,
 
     bound = _plain_bound(p, bn, norms, m_hi, beta, inv_n, inv_raw, z, resid_w, amax, sse,
                          sst, scratch)
+    del scratch, full  # the design too (full holds it when padded): not kept for refinement
     core = Core(b, inv_scaled, beta, inv_raw, resid, h, sse, sst, cond, method, bound, basis,
                 gram, m_hi)
     if bound <= ACCEPT_ERROR or not certify:
